@@ -1,0 +1,228 @@
+import type { ComputeBackend } from '../compute/backend.js';
+import { kernelG, kernelH, type KernelSpec } from '../compute/kernel-spec.js';
+import { createOptimizerState, optimizerStep, type OptimizerKind, type OptimizerState } from './optimizer.js';
+import type { Rng } from './random.js';
+import type { RowSource } from './rows.js';
+import { solveWeights } from './weights.js';
+
+export interface DescentOptions {
+  optimizer: OptimizerKind;
+  batchSize: number;
+  maxIterations: number;
+  /** Wall-clock budget in ms for the descent; null = none. */
+  timeBudgetMs: number | null;
+  /** Initial step in units of the data scale s (Adam: per coordinate, divided by √d). */
+  learningRate: number;
+  /** The step decays geometrically to this fraction of the initial one at the end of the budget. */
+  finalLearningRateFraction: number;
+  /** Stop when the running loss improved by less than this fraction of its initial value over a window. 0 = never. */
+  plateauTolerance: number;
+  /** Iterations per plateau window. */
+  plateauWindow: number;
+  /** Re-solve the weights every this many iterations (optimized weights only). */
+  weightEvery: number;
+  optimizeWeights: boolean;
+}
+
+export interface DescentState {
+  points: Float32Array;
+  weights: Float64Array;
+  optimizer: OptimizerState;
+  iteration: number;
+  /** Running (exponential moving average) estimate of D², and of cᵢ for the weight solver. */
+  lossEma: number | null;
+  cEma: Float64Array | null;
+  initialLoss: number | null;
+  windowStartLoss: number | null;
+  elapsedMs: number;
+  gradScale: number | null;
+}
+
+export interface DescentProgress {
+  iteration: number;
+  maxIterations: number;
+  loss: number;
+  elapsedMs: number;
+  /** Fraction of the budget (iterations or time, whichever binds) used so far. */
+  fraction: number;
+}
+
+export type StopReason = 'iterations' | 'time' | 'plateau' | 'cancelled';
+
+export interface DescentResult {
+  state: DescentState;
+  stopReason: StopReason;
+  /** Running loss every `traceEvery` iterations: [iteration, loss]. */
+  trace: Array<[number, number]>;
+}
+
+export interface DescentContext {
+  rows: RowSource;
+  backend: ComputeBackend;
+  kernel: KernelSpec;
+  rng: Rng;
+  /** Data scale s (median pairwise distance). */
+  scale: number;
+  /** E h(|Y − Y'|) estimate, so the reported loss is a D² estimate. */
+  constant: number;
+  /** Points that count as representatives but never move (1 = fixed); room for already-annotated items. */
+  frozen?: Uint8Array;
+  now?: () => number;
+  onProgress?: (p: DescentProgress) => void;
+  /** Called after each iteration; return true to stop (cancellation). */
+  shouldStop?: () => boolean;
+}
+
+export function initialDescentState(points: Float32Array, k: number, kind: OptimizerKind): DescentState {
+  return {
+    points,
+    weights: new Float64Array(k).fill(1 / k),
+    optimizer: createOptimizerState(kind, points.length),
+    iteration: 0,
+    lossEma: null,
+    cEma: null,
+    initialLoss: null,
+    windowStartLoss: null,
+    elapsedMs: 0,
+    gradScale: null,
+  };
+}
+
+/**
+ * Minibatch stochastic descent on D²(μ, ν) over the k points. The data term's gradient
+ * 2wⱼ E_y g(|pⱼ − y|²)(pⱼ − y) is estimated without bias from a minibatch of B rows; the self
+ * term −Σ wᵢwⱼ h(|pᵢ − pⱼ|) is exact (k×k). The state can be saved and resumed at any iteration.
+ */
+export async function runDescent(ctx: DescentContext, state: DescentState, o: DescentOptions): Promise<DescentResult> {
+  const { rows, backend, kernel, rng } = ctx;
+  const n = rows.rows;
+  const d = rows.cols;
+  const k = state.weights.length;
+  const B = Math.min(o.batchSize, n);
+  const now = ctx.now ?? (() => performance.now());
+  const started = now() - state.elapsedMs;
+  const trace: Array<[number, number]> = [];
+  const traceEvery = Math.max(1, Math.floor(o.maxIterations / 200));
+  const lr0 = state.optimizer.kind === 'adam' ? (o.learningRate * ctx.scale) / Math.sqrt(d) : o.learningRate * ctx.scale;
+  const emaRate = 2 / (Math.min(o.plateauWindow, 50) + 1);
+  const grad = new Float64Array(k * d);
+  let stopReason: StopReason = 'iterations';
+
+  while (state.iteration < o.maxIterations) {
+    const elapsed = now() - started;
+    const fraction = Math.max(state.iteration / o.maxIterations, o.timeBudgetMs ? elapsed / o.timeBudgetMs : 0);
+    if (o.timeBudgetMs !== null && elapsed >= o.timeBudgetMs) {
+      stopReason = 'time';
+      break;
+    }
+    const batch = B === n ? rows.read(0, n) : rows.gather(rng.sample(n, B));
+    const stats = await backend.dataTerm(batch, B, state.points, k, d, kernel);
+    const self = await selfTerm(backend, kernel, state.points, state.weights, k, d);
+
+    // Loss estimate and data-term means for the weight solver.
+    let lin = 0;
+    const c = new Float64Array(k);
+    for (let j = 0; j < k; j++) {
+      c[j] = stats.hSum[j] / B;
+      lin += state.weights[j] * c[j];
+    }
+    const loss = 2 * lin - self.quadratic - ctx.constant;
+    state.lossEma = state.lossEma === null ? loss : state.lossEma + emaRate * (loss - state.lossEma);
+    if (state.cEma === null) state.cEma = c;
+    else for (let j = 0; j < k; j++) state.cEma[j] += 0.2 * (c[j] - state.cEma[j]);
+    if (state.initialLoss === null) state.initialLoss = loss;
+
+    // ∇ₚⱼ D² = 2wⱼ [ (gSumⱼ pⱼ − gxⱼ)/B − (self)ⱼ ].
+    for (let j = 0; j < k; j++) {
+      const wj = state.weights[j];
+      const row = j * d;
+      for (let t = 0; t < d; t++) {
+        const data = (stats.gSum[j] * state.points[row + t] - stats.gx[row + t]) / B;
+        grad[row + t] = 2 * wj * (data - self.grad[row + t]);
+      }
+    }
+    if (state.optimizer.kind === 'sgd') normaliseForSgd(state, grad, k, d);
+
+    const lr = lr0 * Math.pow(o.finalLearningRateFraction, Math.min(fraction, 1));
+    optimizerStep(state.optimizer, state.points, grad, { lr, frozen: ctx.frozen, frozenStride: d });
+    state.iteration++;
+    state.elapsedMs = now() - started;
+
+    if (o.optimizeWeights && k > 1 && state.iteration % o.weightEvery === 0) {
+      state.weights = solveWeights(state.cEma, self.K, { start: state.weights, maxIterations: 500, tol: 1e-6 }).weights;
+    }
+    if (state.iteration % traceEvery === 0) trace.push([state.iteration, state.lossEma]);
+    ctx.onProgress?.({ iteration: state.iteration, maxIterations: o.maxIterations, loss: state.lossEma, elapsedMs: state.elapsedMs, fraction });
+
+    if (o.plateauTolerance > 0 && state.iteration % o.plateauWindow === 0) {
+      const ref = Math.abs(state.initialLoss) || 1;
+      if (state.windowStartLoss !== null && state.windowStartLoss - state.lossEma < o.plateauTolerance * ref && fraction > 0.2) {
+        stopReason = 'plateau';
+        break;
+      }
+      state.windowStartLoss = state.lossEma;
+    }
+    if (ctx.shouldStop?.()) {
+      stopReason = 'cancelled';
+      break;
+    }
+  }
+  return { state, stopReason, trace };
+}
+
+/**
+ * Exact self term: quadratic = Σᵢⱼ wᵢwⱼ h(|pᵢ − pⱼ|), K = [h(|pᵢ − pⱼ|)], and for each j
+ * grad[j] = Σᵢ wᵢ g(|pⱼ − pᵢ|²)(pⱼ − pᵢ), so ∇ₚⱼ of the quadratic is 2wⱼ·grad[j].
+ * The k×k×d product runs on the backend (gemm); the diagonal is skipped since pⱼ − pⱼ = 0.
+ */
+export async function selfTerm(
+  backend: ComputeBackend,
+  kernel: KernelSpec,
+  points: Float32Array,
+  weights: Float64Array,
+  k: number,
+  d: number,
+): Promise<{ quadratic: number; K: Float64Array; grad: Float64Array }> {
+  const sq = await backend.sqDistances(points, k, points, k, d);
+  const K = new Float64Array(k * k);
+  const G = new Float32Array(k * k);
+  const rowSum = new Float64Array(k);
+  let quadratic = 0;
+  for (let j = 0; j < k; j++) {
+    for (let i = 0; i < k; i++) {
+      const s = i === j ? 0 : sq[j * k + i];
+      const h = kernelH(kernel, s);
+      K[j * k + i] = h;
+      quadratic += weights[j] * weights[i] * h;
+      if (i !== j) {
+        const g = weights[i] * kernelG(kernel, s);
+        G[j * k + i] = g;
+        rowSum[j] += g;
+      }
+    }
+  }
+  const gp = await backend.gemm(G, k, k, points, k, d, false, false);
+  const grad = new Float64Array(k * d);
+  for (let j = 0; j < k; j++) {
+    for (let t = 0; t < d; t++) grad[j * d + t] = rowSum[j] * points[j * d + t] - gp[j * d + t];
+  }
+  return { quadratic, K, grad };
+}
+
+/**
+ * Momentum SGD has no per-coordinate scaling, so the raw gradient (of size ~wⱼ, and ~1/σ for the
+ * Gaussian kernel) is divided per point by wⱼ and by the RMS point-gradient of the first step;
+ * the step size is then in units of the data scale like Adam's.
+ */
+function normaliseForSgd(state: DescentState, grad: Float64Array, k: number, d: number): void {
+  let total = 0;
+  for (let j = 0; j < k; j++) {
+    const wj = state.weights[j] || 1 / k;
+    for (let t = 0; t < d; t++) {
+      grad[j * d + t] /= wj;
+      total += grad[j * d + t] ** 2;
+    }
+  }
+  if (state.gradScale === null) state.gradScale = Math.sqrt(total / k) || 1;
+  for (let i = 0; i < grad.length; i++) grad[i] /= state.gradScale;
+}

@@ -1,0 +1,148 @@
+import type { ComputeBackend } from '../compute/backend.js';
+import { kernelAtZero, type KernelSpec } from '../compute/kernel-spec.js';
+import type { Rng } from './random.js';
+import type { RowSource } from './rows.js';
+
+/**
+ * D²(μ, ν) = 2 Σᵢ wᵢ cᵢ − Σᵢⱼ wᵢwⱼ Kᵢⱼ − E h(|Y − Y'|), with cᵢ = E_y h(|pᵢ − y|), Kᵢⱼ = h(|pᵢ − pⱼ|)
+ * (Székely & Rizzo's energy distance for h(r) = r; squared MMD for h = −k, Gretton et al. 2012).
+ */
+export function discrepancyFromTerms(c: ArrayLike<number>, K: Float64Array, w: ArrayLike<number>, constant: number): number {
+  const k = c.length;
+  let lin = 0;
+  let quad = 0;
+  for (let i = 0; i < k; i++) {
+    lin += w[i] * c[i];
+    for (let j = 0; j < k; j++) quad += w[i] * w[j] * K[i * k + j];
+  }
+  return 2 * lin - quad - constant;
+}
+
+/**
+ * Exact D² between two weighted point sets (weights are normalised; omitted → uniform).
+ * Small sets only: it forms the full kernel matrices.
+ */
+export async function discrepancyBetween(
+  backend: ComputeBackend,
+  kernel: KernelSpec,
+  x: Float32Array,
+  nx: number,
+  y: Float32Array,
+  ny: number,
+  d: number,
+  wx?: ArrayLike<number>,
+  wy?: ArrayLike<number>,
+): Promise<number> {
+  const ux = normalise(wx, nx);
+  const uy = normalise(wy, ny);
+  const kxy = await backend.kernelMatrix(x, nx, y, ny, d, kernel);
+  const kxx = await backend.kernelMatrix(x, nx, x, nx, d, kernel);
+  const kyy = await backend.kernelMatrix(y, ny, y, ny, d, kernel);
+  let cross = 0;
+  for (let i = 0; i < nx; i++) for (let j = 0; j < ny; j++) cross += ux[i] * uy[j] * kxy[i * ny + j];
+  return 2 * cross - quadratic(kxx, ux) - quadratic(kyy, uy);
+}
+
+export interface ConstantTerm {
+  /** E h(|Y − Y'|) over the empirical measure (V-statistic: pairs with i = j included). */
+  value: number;
+  /** True when computed over all pairs; false when estimated from a row sample. */
+  exact: boolean;
+  sampleRows: number;
+}
+
+export interface ConstantTermOptions {
+  /** Compute over all N² pairs up to this many rows. Default 20,000. */
+  exactMaxRows?: number;
+  /** Otherwise estimate from this many sampled rows. Default 8,192. */
+  sampleRows?: number;
+  /** Rows per kernel call. Default 4,096. */
+  blockRows?: number;
+}
+
+/**
+ * The data's self term E h(|Y − Y'|), which does not depend on the representatives. Above
+ * `exactMaxRows` it is estimated without bias from a row sample by the U-statistic, converted
+ * to the V-statistic of the full empirical measure: V = ((N − 1)·U + h(0)) / N (derivation).
+ */
+export async function constantTerm(
+  rows: RowSource,
+  backend: ComputeBackend,
+  kernel: KernelSpec,
+  rng: Rng,
+  options: ConstantTermOptions = {},
+): Promise<ConstantTerm> {
+  const n = rows.rows;
+  const d = rows.cols;
+  const exactMax = options.exactMaxRows ?? 20_000;
+  const blockRows = options.blockRows ?? 4096;
+  if (n <= exactMax) {
+    let total = 0;
+    for (let a = 0; a < n; a += blockRows) {
+      const ca = Math.min(blockRows, n - a);
+      const cBlock = rows.gather(range(a, ca));
+      for (let b = 0; b < n; b += blockRows) {
+        const cb = Math.min(blockRows, n - b);
+        const sums = await backend.kernelColumnSums(rows.read(b, cb), cb, cBlock, ca, d, kernel);
+        for (let j = 0; j < ca; j++) total += sums[j];
+      }
+    }
+    return { value: total / (n * n), exact: true, sampleRows: n };
+  }
+  const m = Math.min(options.sampleRows ?? 8192, n);
+  const sample = rows.gather(rng.sample(n, m));
+  let total = 0;
+  for (let a = 0; a < m; a += blockRows) {
+    const ca = Math.min(blockRows, m - a);
+    const sums = await backend.kernelColumnSums(sample, m, sample.subarray(a * d, (a + ca) * d), ca, d, kernel);
+    for (let j = 0; j < ca; j++) total += sums[j];
+  }
+  const h0 = kernelAtZero(kernel);
+  const u = (total - m * h0) / (m * (m - 1));
+  return { value: ((n - 1) * u + h0) / n, exact: false, sampleRows: m };
+}
+
+/** cᵢ = E_y h(|pᵢ − y|) over all rows, streamed in blocks. */
+export async function dataTermMeans(
+  rows: RowSource,
+  backend: ComputeBackend,
+  kernel: KernelSpec,
+  points: Float32Array,
+  k: number,
+  blockRows = 8192,
+): Promise<Float64Array> {
+  const c = new Float64Array(k);
+  for (let start = 0; start < rows.rows; start += blockRows) {
+    const count = Math.min(blockRows, rows.rows - start);
+    const sums = await backend.kernelColumnSums(rows.read(start, count), count, points, k, rows.cols, kernel);
+    for (let j = 0; j < k; j++) c[j] += sums[j];
+  }
+  for (let j = 0; j < k; j++) c[j] /= rows.rows;
+  return c;
+}
+
+export function quadratic(K: Float64Array, w: ArrayLike<number>): number {
+  const k = w.length;
+  let q = 0;
+  for (let i = 0; i < k; i++) {
+    let row = 0;
+    for (let j = 0; j < k; j++) row += K[i * k + j] * w[j];
+    q += w[i] * row;
+  }
+  return q;
+}
+
+function normalise(w: ArrayLike<number> | undefined, n: number): Float64Array {
+  const out = new Float64Array(n);
+  if (!w) return out.fill(1 / n);
+  let sum = 0;
+  for (let i = 0; i < n; i++) sum += w[i];
+  for (let i = 0; i < n; i++) out[i] = w[i] / sum;
+  return out;
+}
+
+export function range(start: number, count: number): Int32Array {
+  const out = new Int32Array(count);
+  for (let i = 0; i < count; i++) out[i] = start + i;
+  return out;
+}

@@ -1,0 +1,122 @@
+import type { ComputeBackend } from '../compute/backend.js';
+import { kernelAtZero, type KernelSpec } from '../compute/kernel-spec.js';
+import { solveWeights } from './weights.js';
+
+export interface RefineInput {
+  /** Candidate vectors (pool × d): the rows a representative may be swapped for. */
+  pool: Float32Array;
+  poolSize: number;
+  d: number;
+  /** c[u] = E_y h(|pool_u − y|). */
+  c: Float64Array;
+  /** Pool positions of the current representatives (k slots). */
+  slots: Int32Array;
+  weights: Float64Array;
+  /** Slots that may not be swapped (fixed items); 1 = fixed. */
+  frozen?: Uint8Array;
+  optimizeWeights: boolean;
+  /** Cap on accepted swaps. */
+  maxSwaps: number;
+  /** Weight re-solve rounds between swap phases (optimized weights only). */
+  rounds: number;
+}
+
+export interface RefineResult {
+  slots: Int32Array;
+  weights: Float64Array;
+  swaps: number;
+  /** 2Σwᵢcᵢ − ΣwᵢwⱼKᵢⱼ before and after (D² without the data's constant term). */
+  before: number;
+  after: number;
+  weightSolverConverged: boolean;
+}
+
+/**
+ * Discrete local search over real items: swap one representative for a candidate while the
+ * discrepancy drops. With B_u = Σ_b w_b K(u, S_b), swapping slot r (item s, weight w_r) for u
+ * changes f = 2Σwc − ΣΣwwK by (derivation)
+ *   Δ = 2w_r (c_u − c_s) − 2w_r [B_u − w_r K(u, s) − B_s + w_r h(0)],
+ * so every (slot, candidate) pair is scored in O(1) and the best swap is taken each step.
+ */
+export async function refineBySwaps(backend: ComputeBackend, kernel: KernelSpec, input: RefineInput): Promise<RefineResult> {
+  const { pool, poolSize: P, d, c } = input;
+  const k = input.slots.length;
+  const slots = Int32Array.from(input.slots);
+  let weights: Float64Array = Float64Array.from(input.weights);
+  const h0 = kernelAtZero(kernel);
+  // KPS[u·k + r] = K(pool_u, pool_{slots[r]}).
+  const KPS = new Float64Array(P * k);
+  const reps = gatherRows(pool, slots, d);
+  const cols = await backend.kernelMatrix(pool, P, reps, k, d, kernel);
+  KPS.set(cols);
+  const inSet = new Int32Array(P).fill(-1);
+  slots.forEach((u, r) => (inSet[u] = r));
+
+  const objective = (): number => {
+    let lin = 0;
+    let quad = 0;
+    for (let r = 0; r < k; r++) {
+      lin += weights[r] * c[slots[r]];
+      for (let q = 0; q < k; q++) quad += weights[r] * weights[q] * KPS[slots[r] * k + q];
+    }
+    return 2 * lin - quad;
+  };
+  const before = objective();
+  let swaps = 0;
+  let converged = true;
+
+  for (let round = 0; round < Math.max(1, input.rounds); round++) {
+    const Bu = new Float64Array(P);
+    for (let u = 0; u < P; u++) for (let r = 0; r < k; r++) Bu[u] += weights[r] * KPS[u * k + r];
+    let swapsThisRound = 0;
+    const scale = Math.abs(before) + 1e-300;
+    while (swaps < input.maxSwaps) {
+      let best = -1e-12 * scale;
+      let bestR = -1;
+      let bestU = -1;
+      for (let r = 0; r < k; r++) {
+        if (input.frozen?.[r]) continue;
+        const s = slots[r];
+        const wr = weights[r];
+        if (wr === 0) continue;
+        for (let u = 0; u < P; u++) {
+          if (inSet[u] >= 0) continue;
+          const delta = 2 * wr * (c[u] - c[s]) - 2 * wr * (Bu[u] - wr * KPS[u * k + r] - Bu[s] + wr * h0);
+          if (delta < best) {
+            best = delta;
+            bestR = r;
+            bestU = u;
+          }
+        }
+      }
+      if (bestR < 0) break;
+      const old = slots[bestR];
+      const col = await backend.kernelMatrix(pool, P, pool.subarray(bestU * d, bestU * d + d), 1, d, kernel);
+      const wr = weights[bestR];
+      for (let u = 0; u < P; u++) {
+        Bu[u] += wr * (col[u] - KPS[u * k + bestR]);
+        KPS[u * k + bestR] = col[u];
+      }
+      inSet[old] = -1;
+      inSet[bestU] = bestR;
+      slots[bestR] = bestU;
+      swaps++;
+      swapsThisRound++;
+    }
+    if (!input.optimizeWeights || k === 1) break;
+    const cS = Float64Array.from(slots, (u) => c[u]);
+    const KSS = new Float64Array(k * k);
+    for (let r = 0; r < k; r++) for (let q = 0; q < k; q++) KSS[r * k + q] = KPS[slots[r] * k + q];
+    const sol = solveWeights(cS, KSS, { start: weights });
+    weights = sol.weights;
+    converged = sol.converged;
+    if (swapsThisRound === 0 && round > 0) break;
+  }
+  return { slots, weights, swaps, before, after: objective(), weightSolverConverged: converged };
+}
+
+export function gatherRows(data: Float32Array, idx: ArrayLike<number>, d: number): Float32Array {
+  const out = new Float32Array(idx.length * d);
+  for (let i = 0; i < idx.length; i++) out.set(data.subarray(idx[i] * d, idx[i] * d + d), i * d);
+  return out;
+}

@@ -1,0 +1,79 @@
+/**
+ * The result of one selection, as returned by the engine, the CLI and the API. Distances are
+ * Euclidean in the selection space; D² values use the job's kernel. Documented field by field
+ * in docs/result.md.
+ */
+export interface SelectionResult {
+  version: 1;
+  k: number;
+  rows: number;
+  /** Dimensions of the selection space. */
+  dims: number;
+  space: string;
+  kernel: { kind: 'energy'; a: number } | { kind: 'gaussian'; sigma: number };
+  /** Median pairwise distance s (the scale of the kernel and the step sizes). */
+  scale: number;
+  seed: number;
+  weights: 'uniform' | 'optimized';
+  /** In rank order: every prefix of this list is a good summary. */
+  representatives: Representative[];
+  coverage: {
+    meanDistance: number;
+    p90Distance: number;
+    maxDistance: number;
+    coveredWithin: Array<{ radius: number; fraction: number }>;
+    worstCovered: Array<{ index: number; distance: number; nearestRank: number }>;
+    labels: Record<string, { count: number; representatives: number; meanDistance: number }> | null;
+  };
+  discrepancy: {
+    /** D² of the representatives with their weights. */
+    value: number;
+    /** E h(|Y − Y'|) of the data; exact or estimated from a sample. */
+    constant: { value: number; exact: boolean; sampleRows: number };
+    random: { median: number; draws: number[] };
+    /** value / random.median: below 1 is better than picking k items at random. */
+    ratioToRandom: number;
+    /** D² of the first m representatives with uniform weights, m = 1..k, and the median over random draws. */
+    prefix: Array<{ m: number; value: number; random: number }>;
+    /** D² after each stage (uniform or descent weights until the final solve). */
+    stages: { seeded: number; descent: number; snapped: number; refined: number; final: number };
+  };
+  trace: {
+    iterations: number;
+    stopReason: string;
+    swaps: number;
+    weightSolver: { converged: boolean; gap: number; iterations: number } | null;
+    loss: Array<[number, number]>;
+    seconds: Record<string, number>;
+    explainedVarianceRatio?: number[];
+  };
+}
+
+export interface Representative {
+  rank: number;
+  /** 0-based row of the item in the input. */
+  index: number;
+  /** Weight in the weighted set ν (sums to 1 over representatives). */
+  weight: number;
+  /** Fraction of all items whose nearest representative this is (sums to 1). */
+  share: number;
+  count: number;
+  meanDistance: number;
+  p90Distance: number;
+  /** Distance from the representative to the farthest item it covers. */
+  radius: number;
+  labels: Record<string, number> | null;
+}
+
+export type SelectPhase = 'prepare' | 'scale' | 'seed' | 'descent' | 'snap' | 'refine' | 'coverage' | 'baseline' | 'done';
+
+export interface SelectProgress {
+  phase: SelectPhase;
+  /** Overall fraction done, 0..1 (approximate). */
+  fraction: number;
+  iteration?: number;
+  maxIterations?: number;
+  loss?: number;
+  /** Estimated seconds left, when it can be estimated. */
+  etaSeconds?: number;
+}

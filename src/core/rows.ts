@@ -1,0 +1,87 @@
+/**
+ * Read access to the rows of a dataset after preprocessing. The core only reads data through
+ * this interface, so a selection can run over an in-memory array or a store read in blocks.
+ */
+export interface RowSource {
+  readonly rows: number;
+  readonly cols: number;
+  /** Rows [start, start + count) as a fresh or borrowed row-major array; callers must not modify it. */
+  read(start: number, count: number): Float32Array;
+  /** The given rows, in the given order, as a fresh row-major array. */
+  gather(indices: ArrayLike<number>): Float32Array;
+}
+
+/** Rows held in one row-major Float32Array. */
+export class DenseRows implements RowSource {
+  constructor(
+    readonly data: Float32Array,
+    readonly rows: number,
+    readonly cols: number,
+  ) {
+    if (data.length !== rows * cols) throw new RangeError(`data has ${data.length} values, expected ${rows}×${cols}`);
+  }
+
+  read(start: number, count: number): Float32Array {
+    return this.data.subarray(start * this.cols, (start + count) * this.cols);
+  }
+
+  gather(indices: ArrayLike<number>): Float32Array {
+    const d = this.cols;
+    const out = new Float32Array(indices.length * d);
+    for (let i = 0; i < indices.length; i++) {
+      const r = indices[i];
+      out.set(this.data.subarray(r * d, r * d + d), i * d);
+    }
+    return out;
+  }
+}
+
+/**
+ * (x − shift) ⊙ scale applied on the fly. Centering is always applied, even in raw space:
+ * distances do not change, and smaller norms reduce the float32 cancellation in
+ * |x|² + |p|² − 2x·p inside the compute kernels.
+ */
+export class AffineRows implements RowSource {
+  readonly rows: number;
+  readonly cols: number;
+
+  constructor(
+    private readonly source: RowSource,
+    readonly shift: Float32Array,
+    readonly scale: Float32Array | null,
+  ) {
+    this.rows = source.rows;
+    this.cols = source.cols;
+  }
+
+  read(start: number, count: number): Float32Array {
+    return this.apply(Float32Array.from(this.source.read(start, count)));
+  }
+
+  gather(indices: ArrayLike<number>): Float32Array {
+    return this.apply(this.source.gather(indices));
+  }
+
+  private apply(a: Float32Array): Float32Array {
+    const d = this.cols;
+    for (let i = 0; i < a.length; i += d) {
+      for (let t = 0; t < d; t++) {
+        const v = a[i + t] - this.shift[t];
+        a[i + t] = this.scale ? v * this.scale[t] : v;
+      }
+    }
+    return a;
+  }
+}
+
+/** Calls fn on consecutive blocks of at most `blockRows` rows. */
+export async function forEachBlock(
+  source: RowSource,
+  blockRows: number,
+  fn: (block: Float32Array, start: number, count: number) => Promise<void> | void,
+): Promise<void> {
+  for (let start = 0; start < source.rows; start += blockRows) {
+    const count = Math.min(blockRows, source.rows - start);
+    await fn(source.read(start, count), start, count);
+  }
+}

@@ -1,0 +1,127 @@
+import { EigenvalueDecomposition, Matrix, QrDecomposition } from 'ml-matrix';
+import type { ComputeBackend } from '../compute/backend.js';
+import type { Rng } from './random.js';
+import { AffineRows, DenseRows, type RowSource } from './rows.js';
+
+/** The geometry a selection runs in. Distances in results are measured in this space. */
+export type SpaceSpec = { kind: 'raw' } | { kind: 'standardize' } | { kind: 'pca'; components: number };
+
+export interface PreparedSpace {
+  rows: RowSource;
+  spec: SpaceSpec;
+  /** PCA only: share of the total variance each kept component explains. */
+  explainedVarianceRatio?: number[];
+}
+
+export function parseSpace(text: string): SpaceSpec {
+  if (text === 'raw' || text === 'standardize') return { kind: text };
+  const m = /^pca:(\d+)$/.exec(text);
+  if (m && Number(m[1]) >= 1) return { kind: 'pca', components: Number(m[1]) };
+  throw new RangeError(`space must be raw, standardize or pca:M with M ≥ 1 (got ${JSON.stringify(text)})`);
+}
+
+/** Column means and standard deviations in one streamed pass (Welford's update per block, in float64). */
+export function columnMoments(rows: RowSource, blockRows = 16_384): { mean: Float64Array; std: Float64Array } {
+  const d = rows.cols;
+  const mean = new Float64Array(d);
+  const m2 = new Float64Array(d);
+  let count = 0;
+  for (let start = 0; start < rows.rows; start += blockRows) {
+    const c = Math.min(blockRows, rows.rows - start);
+    const block = rows.read(start, c);
+    for (let i = 0; i < c; i++) {
+      count++;
+      for (let t = 0; t < d; t++) {
+        const x = block[i * d + t];
+        const delta = x - mean[t];
+        mean[t] += delta / count;
+        m2[t] += delta * (x - mean[t]);
+      }
+    }
+  }
+  const std = Float64Array.from(m2, (v) => Math.sqrt(v / Math.max(count, 1)));
+  return { mean, std };
+}
+
+/**
+ * Prepares the selection space. Rows are always centred (see AffineRows). `standardize` divides
+ * each column by its standard deviation (constant columns become 0). `pca:M` projects the
+ * centred rows on the top M principal axes, found by randomized subspace iteration on XᵀX
+ * (Halko, Martinsson & Tropp, SIAM Review 2011, Alg. 4.4 with q power steps), whose products run
+ * on the compute backend; the projected rows are held in memory (N×M floats).
+ */
+export async function prepareSpace(source: RowSource, spec: SpaceSpec, backend: ComputeBackend, rng: Rng): Promise<PreparedSpace> {
+  const { mean, std } = columnMoments(source);
+  const shift = Float32Array.from(mean);
+  if (spec.kind === 'raw') return { rows: new AffineRows(source, shift, null), spec };
+  if (spec.kind === 'standardize') {
+    return { rows: new AffineRows(source, shift, Float32Array.from(std, (s) => (s > 0 ? 1 / s : 0))), spec };
+  }
+  const centred = new AffineRows(source, shift, null);
+  const d = source.cols;
+  const M = Math.min(spec.components, d, source.rows);
+  const l = Math.min(d, M + 10);
+  let Z: Float32Array = new Float32Array(d * l);
+  for (let i = 0; i < Z.length; i++) Z[i] = rng.normal();
+  Z = orthonormalColumns(Z, d, l);
+  for (let q = 0; q < 3; q++) Z = orthonormalColumns(await covarianceTimes(centred, backend, Z, l), d, l);
+  // Rayleigh–Ritz: eigenvectors of Zᵀ(XᵀX)Z give the principal axes within span(Z).
+  const CZ = await covarianceTimes(centred, backend, Z, l);
+  const small = await backend.gemm(Z, d, l, CZ, d, l, true, false);
+  const eig = new EigenvalueDecomposition(symmetric(small, l), { assumeSymmetric: true });
+  const values = eig.realEigenvalues;
+  const order = values.map((_, i) => i).sort((a, b) => values[b] - values[a]).slice(0, M);
+  const U = eig.eigenvectorMatrix;
+  const axes = new Float32Array(d * M); // d×M
+  for (let t = 0; t < d; t++) {
+    for (let c = 0; c < M; c++) {
+      let acc = 0;
+      for (let r = 0; r < l; r++) acc += Z[t * l + r] * U.get(r, order[c]);
+      axes[t * M + c] = acc;
+    }
+  }
+  let totalVariance = 0;
+  for (const s of std) totalVariance += s * s * source.rows;
+  const projected = new Float32Array(source.rows * M);
+  const blockRows = 16_384;
+  for (let start = 0; start < source.rows; start += blockRows) {
+    const count = Math.min(blockRows, source.rows - start);
+    projected.set(await backend.gemm(centred.read(start, count), count, d, axes, d, M, false, false), start * M);
+  }
+  return {
+    rows: new DenseRows(projected, source.rows, M),
+    spec,
+    explainedVarianceRatio: order.map((i) => (totalVariance > 0 ? Math.max(values[i], 0) / totalVariance : 0)),
+  };
+}
+
+/** (XᵀX)·Z for a d×l matrix Z, streamed over row blocks: Σ_b X_bᵀ (X_b Z). */
+async function covarianceTimes(rows: RowSource, backend: ComputeBackend, Z: Float32Array, l: number): Promise<Float32Array> {
+  const d = rows.cols;
+  const out = new Float64Array(d * l);
+  const blockRows = 16_384;
+  for (let start = 0; start < rows.rows; start += blockRows) {
+    const count = Math.min(blockRows, rows.rows - start);
+    const X = rows.read(start, count);
+    const XZ = await backend.gemm(X, count, d, Z, d, l, false, false);
+    const part = await backend.gemm(X, count, d, XZ, count, l, true, false);
+    for (let i = 0; i < part.length; i++) out[i] += part[i];
+  }
+  return Float32Array.from(out);
+}
+
+/** Orthonormal columns spanning those of a (rows×cols), via ml-matrix's QR. */
+function orthonormalColumns(a: Float32Array, rows: number, cols: number): Float32Array {
+  const m = new Matrix(rows, cols);
+  for (let i = 0; i < rows; i++) for (let j = 0; j < cols; j++) m.set(i, j, a[i * cols + j]);
+  const q = new QrDecomposition(m).orthogonalMatrix;
+  const out = new Float32Array(rows * cols);
+  for (let i = 0; i < rows; i++) for (let j = 0; j < cols; j++) out[i * cols + j] = q.get(i, j);
+  return out;
+}
+
+function symmetric(a: Float32Array, n: number): Matrix {
+  const m = new Matrix(n, n);
+  for (let i = 0; i < n; i++) for (let j = 0; j < n; j++) m.set(i, j, (a[i * n + j] + a[j * n + i]) / 2);
+  return m;
+}
