@@ -3,6 +3,7 @@ import { kernelG, kernelH, type KernelSpec } from '../compute/kernel-spec.js';
 import { createOptimizerState, optimizerStep, type OptimizerKind, type OptimizerState } from './optimizer.js';
 import type { Rng } from './random.js';
 import type { RowSource } from './rows.js';
+import { dataTermMeans } from './discrepancy.js';
 import { solveWeights } from './weights.js';
 
 export interface DescentOptions {
@@ -22,6 +23,8 @@ export interface DescentOptions {
   /** Re-solve the weights every this many iterations (optimized weights only). */
   weightEvery: number;
   optimizeWeights: boolean;
+  /** Fraction of the budget after which the weights are optimized along with the points. */
+  weightsFrom: number;
 }
 
 export interface DescentState {
@@ -65,6 +68,8 @@ export interface DescentContext {
   scale: number;
   /** E h(|Y − Y'|) estimate, so the reported loss is a D² estimate. */
   constant: number;
+  /** Rows for the data term of the weight solver (a sample or all rows); default: the minibatch average. */
+  weightRows?: RowSource;
   /** Points that count as representatives but never move (1 = fixed); room for already-annotated items. */
   frozen?: Uint8Array;
   now?: () => number;
@@ -106,6 +111,8 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
   const lr0 = state.optimizer.kind === 'adam' ? (o.learningRate * ctx.scale) / Math.sqrt(d) : o.learningRate * ctx.scale;
   const emaRate = 2 / (Math.min(o.plateauWindow, 50) + 1);
   const grad = new Float64Array(k * d);
+  // No early stop in the first half, nor before the weights have had their share of the budget.
+  const plateauFrom = o.optimizeWeights ? Math.max(0.5, o.weightsFrom + 0.15) : 0.5;
   let stopReason: StopReason = 'iterations';
 
   while (state.iteration < o.maxIterations) {
@@ -148,15 +155,19 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
     state.iteration++;
     state.elapsedMs = now() - started;
 
-    if (o.optimizeWeights && k > 1 && state.iteration % o.weightEvery === 0) {
-      state.weights = solveWeights(state.cEma, self.K, { start: state.weights, maxIterations: 500, tol: 1e-6 }).weights;
+    // Weights join the descent only for its second half: moved early, they freeze the structure
+    // (a point with a small weight gets a small gradient and stays where it was seeded).
+    if (o.optimizeWeights && k > 1 && fraction >= o.weightsFrom && state.iteration % o.weightEvery === 0) {
+      // c from the (larger) weight sample rather than the minibatch: noisy c gives noisy weights.
+      const cw = ctx.weightRows ? await dataTermMeans(ctx.weightRows, backend, kernel, state.points, k) : state.cEma;
+      state.weights = solveWeights(cw, self.K, { start: state.weights, maxIterations: 500, tol: 1e-6 }).weights;
     }
     if (state.iteration % traceEvery === 0) trace.push([state.iteration, state.lossEma]);
     ctx.onProgress?.({ iteration: state.iteration, maxIterations: o.maxIterations, loss: state.lossEma, elapsedMs: state.elapsedMs, fraction });
 
     if (o.plateauTolerance > 0 && state.iteration % o.plateauWindow === 0) {
       const ref = Math.abs(state.initialLoss) || 1;
-      if (state.windowStartLoss !== null && state.windowStartLoss - state.lossEma < o.plateauTolerance * ref && fraction > 0.2) {
+      if (state.windowStartLoss !== null && state.windowStartLoss - state.lossEma < o.plateauTolerance * ref && fraction > plateauFrom) {
         stopReason = 'plateau';
         break;
       }

@@ -104,6 +104,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
       rng,
       scale: s,
       constant: constant.value,
+      weightRows: scoring,
       now,
       shouldStop: () => ctx.signal?.aborted ?? false,
       onProgress: (p) => {
@@ -125,6 +126,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
       plateauWindow: 100,
       weightEvery: 25,
       optimizeWeights: o.weights === 'optimized',
+      weightsFrom: 0.7,
     },
   );
   checkAbort();
@@ -139,7 +141,10 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   checkAbort();
 
   progress('refine');
-  const poolRows = Array.from(new Set([...snapped, ...Array.from(cand.index).filter((i) => i >= 0)]));
+  // Candidates: each point's nearest items, plus random items so that a swap can also move a
+  // representative to a region the descent left short of points (nearest items alone cannot).
+  const randomCandidates = o.refine ? rng.sample(n, Math.min(n, o.refineRandomCandidates)) : [];
+  const poolRows = Array.from(new Set([...snapped, ...Array.from(cand.index).filter((i) => i >= 0), ...randomCandidates]));
   const pool = rows.gather(poolRows);
   const poolC = await dataTermMeans(scoring, backend, kernel, pool, poolRows.length);
   const slotOf = new Map(poolRows.map((r, i) => [r, i]));

@@ -1,0 +1,97 @@
+import { mkdtemp, rm, writeFile } from 'node:fs/promises';
+import { tmpdir } from 'node:os';
+import { basename, join } from 'node:path';
+import { createBackend, type BackendKind } from '../compute/create-backend.js';
+import type { LabelCodes } from '../core/coverage.js';
+import type { SelectOptionsInput } from '../core/options.js';
+import type { SelectionResult } from '../core/result.js';
+import { DenseRows } from '../core/rows.js';
+import { select } from '../core/select.js';
+import { ingestFile, openDataset } from '../data/dataset-store.js';
+import { defaultReadOptions, type ReadOptionOverrides } from '../data/read-options.js';
+import type { DatasetFormat } from '../data/reader.js';
+import { ProgressBar } from './progress-bar.js';
+
+export interface SelectCommandInput {
+  file: string;
+  format?: DatasetFormat;
+  read: ReadOptionOverrides;
+  options: SelectOptionsInput;
+  backend: BackendKind;
+  out?: string;
+  progress: boolean;
+}
+
+/** The CLI's result: the engine's result plus the item ids and where the data came from. */
+export type CliResult = SelectionResult & {
+  dataset: { source: string; format: string; rows: number; cols: number; sha256: string; droppedNonFinite: number; skippedImages: number };
+  representatives: Array<SelectionResult['representatives'][number] & { id: string; label: string | null }>;
+};
+
+/**
+ * `cairn select FILE`: ingests the file into a private temporary store (the same readers and
+ * limits as the service), runs one selection in this process and writes the result JSON.
+ * The temporary store is deleted afterwards, also on failure.
+ */
+export async function runSelectCommand(input: SelectCommandInput): Promise<CliResult> {
+  const storeDir = await mkdtemp(join(tmpdir(), 'cairn-select-'));
+  const backend = await createBackend(input.backend);
+  try {
+    const meta = await ingestFile(input.file, {
+      storeDir,
+      datasetId: 'input',
+      format: input.format,
+      options: defaultReadOptions(input.read),
+    });
+    const dataset = openDataset(storeDir, 'input');
+    const rows = new DenseRows(dataset.loadMatrix(), meta.rows, meta.cols);
+    const items = await dataset.readItems();
+    const labels = meta.hasLabels ? labelCodes(items.labels) : null;
+    const bar = new ProgressBar(process.stderr, input.progress);
+    const result = await select(rows, input.options, { backend, labels, onProgress: (p) => bar.update(p) });
+    const out: CliResult = {
+      ...result,
+      dataset: {
+        source: basename(input.file),
+        format: meta.format,
+        rows: meta.rows,
+        cols: meta.cols,
+        sha256: meta.sha256,
+        droppedNonFinite: meta.droppedNonFinite,
+        skippedImages: meta.skippedImages,
+      },
+      representatives: result.representatives.map((r) => ({ ...r, id: items.ids[r.index], label: items.labels[r.index] ?? null })),
+      coverage: {
+        ...result.coverage,
+        worstCovered: result.coverage.worstCovered.map((w) => ({ ...w, id: items.ids[w.index] })),
+      },
+    };
+    const text = JSON.stringify(out, null, 2) + '\n';
+    if (input.out) await writeFile(input.out, text);
+    else process.stdout.write(text);
+    return out;
+  } finally {
+    await backend.dispose();
+    await rm(storeDir, { recursive: true, force: true });
+  }
+}
+
+export function labelCodes(labels: readonly (string | null)[]): LabelCodes {
+  const names: string[] = [];
+  const codeOf = new Map<string, number>();
+  const codes = new Int32Array(labels.length);
+  labels.forEach((label, i) => {
+    if (label === null) {
+      codes[i] = -1;
+      return;
+    }
+    let code = codeOf.get(label);
+    if (code === undefined) {
+      code = names.length;
+      names.push(label);
+      codeOf.set(label, code);
+    }
+    codes[i] = code;
+  });
+  return { codes, names };
+}
