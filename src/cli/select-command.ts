@@ -23,9 +23,12 @@ export interface SelectCommandInput {
 }
 
 /** The CLI's result: the engine's result plus the item ids and where the data came from. */
-export type CliResult = SelectionResult & {
+export type CliResult = Omit<SelectionResult, 'representatives' | 'coverage'> & {
   dataset: { source: string; format: string; rows: number; cols: number; sha256: string; droppedNonFinite: number; skippedImages: number };
   representatives: Array<SelectionResult['representatives'][number] & { id: string; label: string | null }>;
+  coverage: Omit<SelectionResult['coverage'], 'worstCovered'> & {
+    worstCovered: Array<SelectionResult['coverage']['worstCovered'][number] & { id: string }>;
+  };
 };
 
 /**
@@ -67,8 +70,12 @@ export async function runSelectCommand(input: SelectCommandInput): Promise<CliRe
       },
     };
     const text = JSON.stringify(out, null, 2) + '\n';
-    if (input.out) await writeFile(input.out, text);
-    else process.stdout.write(text);
+    if (input.out) {
+      await writeFile(input.out, text);
+      if (input.progress) process.stderr.write(summary(out, input.out));
+    } else {
+      process.stdout.write(text);
+    }
     return out;
   } finally {
     await backend.dispose();
@@ -94,4 +101,18 @@ export function labelCodes(labels: readonly (string | null)[]): LabelCodes {
     codes[i] = code;
   });
   return { codes, names };
+}
+
+/** A short human summary for stderr when the JSON went to a file. */
+export function summary(r: CliResult, outFile: string): string {
+  const lines = [`${r.k} representatives of ${r.rows} items (${r.dims}-d ${r.space} space, ${r.kernel.kind} kernel)`];
+  lines.push('rank  weight  share   label         id');
+  for (const rep of r.representatives.slice(0, 20)) {
+    lines.push(`${String(rep.rank).padStart(4)}  ${rep.weight.toFixed(3)}   ${rep.share.toFixed(3)}   ${(rep.label ?? '-').padEnd(12).slice(0, 12)}  ${rep.id}`);
+  }
+  if (r.k > 20) lines.push(`  … ${r.k - 20} more in ${outFile}`);
+  const d = r.discrepancy;
+  lines.push(`D² = ${d.value.toPrecision(4)}; random k-subsets: ${d.random.median.toPrecision(4)} (ratio ${d.ratioToRandom.toFixed(3)})`);
+  lines.push(`result written to ${outFile}`);
+  return lines.join('\n') + '\n';
 }

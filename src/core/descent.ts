@@ -114,6 +114,7 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
   // No early stop in the first half, nor before the weights have had their share of the budget.
   const plateauFrom = o.optimizeWeights ? Math.max(0.5, o.weightsFrom + 0.15) : 0.5;
   let stopReason: StopReason = 'iterations';
+  let fullBatch: Float32Array | undefined;
 
   while (state.iteration < o.maxIterations) {
     const elapsed = now() - started;
@@ -122,7 +123,7 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
       stopReason = 'time';
       break;
     }
-    const batch = B === n ? rows.read(0, n) : rows.gather(rng.sample(n, B));
+    const batch = B === n ? (fullBatch ??= rows.read(0, n)) : rows.gather(rng.sample(n, B));
     const stats = await backend.dataTerm(batch, B, state.points, k, d, kernel);
     const self = await selfTerm(backend, kernel, state.points, state.weights, k, d);
 

@@ -55,7 +55,8 @@ export class AffineRows implements RowSource {
   }
 
   read(start: number, count: number): Float32Array {
-    return this.apply(Float32Array.from(this.source.read(start, count)));
+    // slice() copies with memcpy; Float32Array.from would iterate element by element.
+    return this.apply(this.source.read(start, count).slice());
   }
 
   gather(indices: ArrayLike<number>): Float32Array {
@@ -64,11 +65,12 @@ export class AffineRows implements RowSource {
 
   private apply(a: Float32Array): Float32Array {
     const d = this.cols;
-    for (let i = 0; i < a.length; i += d) {
-      for (let t = 0; t < d; t++) {
-        const v = a[i + t] - this.shift[t];
-        a[i + t] = this.scale ? v * this.scale[t] : v;
-      }
+    const shift = this.shift;
+    const scale = this.scale;
+    if (scale) {
+      for (let i = 0; i < a.length; i += d) for (let t = 0; t < d; t++) a[i + t] = (a[i + t] - shift[t]) * scale[t];
+    } else {
+      for (let i = 0; i < a.length; i += d) for (let t = 0; t < d; t++) a[i + t] -= shift[t];
     }
     return a;
   }
