@@ -115,6 +115,7 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
   const plateauFrom = o.optimizeWeights ? Math.max(0.5, o.weightsFrom + 0.15) : 0.5;
   let stopReason: StopReason = 'iterations';
   let fullBatch: Float32Array | undefined;
+  let batchBuffer: Float32Array | undefined;
 
   while (state.iteration < o.maxIterations) {
     const elapsed = now() - started;
@@ -123,7 +124,7 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
       stopReason = 'time';
       break;
     }
-    const batch = B === n ? (fullBatch ??= rows.read(0, n)) : rows.gather(rng.sample(n, B));
+    const batch = B === n ? (fullBatch ??= rows.read(0, n)) : rows.gather(rng.sample(n, B), (batchBuffer ??= new Float32Array(B * d)));
     const stats = await backend.dataTerm(batch, B, state.points, k, d, kernel);
     const self = await selfTerm(backend, kernel, state.points, state.weights, k, d);
 

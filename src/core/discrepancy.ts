@@ -1,7 +1,7 @@
 import type { ComputeBackend } from '../compute/backend.js';
 import { kernelAtZero, type KernelSpec } from '../compute/kernel-spec.js';
 import type { Rng } from './random.js';
-import type { RowSource } from './rows.js';
+import { DenseRows, type RowSource } from './rows.js';
 
 /**
  * D²(μ, ν) = 2 Σᵢ wᵢ cᵢ − Σᵢⱼ wᵢwⱼ Kᵢⱼ − E h(|Y − Y'|), with cᵢ = E_y h(|pᵢ − y|), Kᵢⱼ = h(|pᵢ − pⱼ|)
@@ -51,6 +51,15 @@ export interface ConstantTerm {
   sampleRows: number;
 }
 
+export interface ConstantTermWithRows extends ConstantTerm {
+  /** The rows the pairs were taken from: all rows (exact) or the sample. */
+  reference: RowSource;
+  /** Row indices of `reference` in the dataset (identity when exact). */
+  referenceIndex: Int32Array;
+  /** For each reference row i, the mean of h(|yᵢ − yⱼ|) over the reference rows j: cᵢ of item i as a candidate. */
+  rowMeans: Float64Array;
+}
+
 export interface ConstantTermOptions {
   /** Compute over all N² pairs up to this many rows. Default 20,000. */
   exactMaxRows?: number;
@@ -61,9 +70,12 @@ export interface ConstantTermOptions {
 }
 
 /**
- * The data's self term E h(|Y − Y'|), which does not depend on the representatives. Above
- * `exactMaxRows` it is estimated without bias from a row sample by the U-statistic, converted
- * to the V-statistic of the full empirical measure: V = ((N − 1)·U + h(0)) / N (derivation).
+ * The data's self term E h(|Y − Y'|), which does not depend on the representatives. Up to
+ * `exactMaxRows` it is computed over all pairs; above, it is estimated without bias from a row
+ * sample by the U-statistic, converted to the V-statistic of the full empirical measure:
+ * V = ((N − 1)·U + h(0)) / N (derivation). The same pass yields, for every reference row, its
+ * data term cᵢ = mean_j h(|yᵢ − yⱼ|), which the swap refinement uses to score every row as a
+ * candidate at no extra cost.
  */
 export async function constantTerm(
   rows: RowSource,
@@ -71,35 +83,31 @@ export async function constantTerm(
   kernel: KernelSpec,
   rng: Rng,
   options: ConstantTermOptions = {},
-): Promise<ConstantTerm> {
+): Promise<ConstantTermWithRows> {
   const n = rows.rows;
   const d = rows.cols;
-  const exactMax = options.exactMaxRows ?? 20_000;
+  const exact = n <= (options.exactMaxRows ?? 20_000);
+  const m = exact ? n : Math.min(options.sampleRows ?? 8192, n);
+  const referenceIndex = exact ? range(0, n) : rng.sample(n, m);
+  const reference: RowSource = exact ? rows : new DenseRows(rows.gather(referenceIndex), m, d);
   const blockRows = options.blockRows ?? 4096;
-  if (n <= exactMax) {
-    let total = 0;
-    for (let a = 0; a < n; a += blockRows) {
-      const ca = Math.min(blockRows, n - a);
-      const cBlock = rows.gather(range(a, ca));
-      for (let b = 0; b < n; b += blockRows) {
-        const cb = Math.min(blockRows, n - b);
-        const sums = await backend.kernelColumnSums(rows.read(b, cb), cb, cBlock, ca, d, kernel);
-        for (let j = 0; j < ca; j++) total += sums[j];
-      }
-    }
-    return { value: total / (n * n), exact: true, sampleRows: n };
-  }
-  const m = Math.min(options.sampleRows ?? 8192, n);
-  const sample = rows.gather(rng.sample(n, m));
-  let total = 0;
+  const rowSums = new Float64Array(m);
   for (let a = 0; a < m; a += blockRows) {
     const ca = Math.min(blockRows, m - a);
-    const sums = await backend.kernelColumnSums(sample, m, sample.subarray(a * d, (a + ca) * d), ca, d, kernel);
-    for (let j = 0; j < ca; j++) total += sums[j];
+    const cBlock = reference.gather(range(a, ca));
+    for (let b = 0; b < m; b += blockRows) {
+      const cb = Math.min(blockRows, m - b);
+      const sums = await backend.kernelColumnSums(reference.read(b, cb), cb, cBlock, ca, d, kernel);
+      for (let j = 0; j < ca; j++) rowSums[a + j] += sums[j];
+    }
   }
+  let total = 0;
+  for (const v of rowSums) total += v;
+  const rowMeans = Float64Array.from(rowSums, (v) => v / m);
+  if (exact) return { value: total / (n * n), exact, sampleRows: n, reference, referenceIndex, rowMeans };
   const h0 = kernelAtZero(kernel);
   const u = (total - m * h0) / (m * (m - 1));
-  return { value: ((n - 1) * u + h0) / n, exact: false, sampleRows: m };
+  return { value: ((n - 1) * u + h0) / n, exact, sampleRows: m, reference, referenceIndex, rowMeans };
 }
 
 /** cᵢ = E_y h(|pᵢ − y|) over all rows, streamed in blocks. */

@@ -22,7 +22,7 @@ export const selectOptionsSchema = z.object({
   plateauTolerance: z.number().min(0).max(1).default(1e-5).describe('Stop early when the running loss falls by less than this fraction of its first value over a window of 100 iterations (checked after half the budget); 0 = never. Default 1e-5.'),
   snapCandidates: z.number().int().min(1).max(1000).default(16).describe('Nearest real items considered per point when snapping and refining. Default 16.'),
   refine: z.boolean().default(true).describe('Swap representatives for candidate items while D² drops. Default true.'),
-  refineRandomCandidates: z.number().int().min(0).max(100_000).default(512).describe('Random items added to the swap candidates, so a representative can move to a region the descent left short. Default 512.'),
+  refinePoolEntries: z.number().int().min(1000).max(1e9).default(5e7).describe('Cap on swap candidates × k (the size of the kernel table the refinement keeps). Candidates are every row up to exactConstantMaxRows (else the constant term\'s row sample) plus each point\'s nearest items. Default 50,000,000.'),
   refineSampleRows: z.number().int().min(100).default(50_000).describe('Rows used to score swap candidates (all rows when fewer). Default 50,000.'),
   randomDraws: z.number().int().min(1).max(101).default(7).describe('Random k-subsets drawn for the "vs random" baseline (their median is used). Default 7.'),
   worstCount: z.number().int().min(0).max(10_000).default(20).describe('How many worst-covered items to list. Default 20.'),

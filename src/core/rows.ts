@@ -7,8 +7,11 @@ export interface RowSource {
   readonly cols: number;
   /** Rows [start, start + count) as a fresh or borrowed row-major array; callers must not modify it. */
   read(start: number, count: number): Float32Array;
-  /** The given rows, in the given order, as a fresh row-major array. */
-  gather(indices: ArrayLike<number>): Float32Array;
+  /**
+   * The given rows, in the given order, row-major; into `out` when given (reusing a buffer
+   * matters: first writes to fresh memory fault pages in, which costs more than the copy).
+   */
+  gather(indices: ArrayLike<number>, out?: Float32Array): Float32Array;
 }
 
 /** Rows held in one row-major Float32Array. */
@@ -25,9 +28,9 @@ export class DenseRows implements RowSource {
     return this.data.subarray(start * this.cols, (start + count) * this.cols);
   }
 
-  gather(indices: ArrayLike<number>): Float32Array {
+  gather(indices: ArrayLike<number>, into?: Float32Array): Float32Array {
     const d = this.cols;
-    const out = new Float32Array(indices.length * d);
+    const out = into ?? new Float32Array(indices.length * d);
     for (let i = 0; i < indices.length; i++) {
       const r = indices[i];
       out.set(this.data.subarray(r * d, r * d + d), i * d);
@@ -59,8 +62,8 @@ export class AffineRows implements RowSource {
     return this.apply(this.source.read(start, count).slice());
   }
 
-  gather(indices: ArrayLike<number>): Float32Array {
-    return this.apply(this.source.gather(indices));
+  gather(indices: ArrayLike<number>, into?: Float32Array): Float32Array {
+    return this.apply(this.source.gather(indices, into));
   }
 
   private apply(a: Float32Array): Float32Array {

@@ -3,7 +3,7 @@ import type { KernelSpec } from '../compute/kernel-spec.js';
 import { CairnError } from '../errors.js';
 import { coverageStats, type LabelCodes } from './coverage.js';
 import { runDescent, initialDescentState, selfTerm } from './descent.js';
-import { constantTerm, dataTermMeans, discrepancyFromTerms } from './discrepancy.js';
+import { constantTerm, dataTermMeans, discrepancyFromTerms, range } from './discrepancy.js';
 import { parseSelectOptions, type SelectOptionsInput } from './options.js';
 import { greedyPrefixOrder, prefixCurve } from './ordering.js';
 import { Rng } from './random.js';
@@ -141,12 +141,30 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   checkAbort();
 
   progress('refine');
-  // Candidates: each point's nearest items, plus random items so that a swap can also move a
-  // representative to a region the descent left short of points (nearest items alone cannot).
-  const randomCandidates = o.refine ? rng.sample(n, Math.min(n, o.refineRandomCandidates)) : [];
-  const poolRows = Array.from(new Set([...snapped, ...Array.from(cand.index).filter((i) => i >= 0), ...randomCandidates]));
+  // Swap candidates: the reference rows of the constant term (every row up to
+  // exactConstantMaxRows, else its sample), whose data terms cᵢ that pass already computed, capped
+  // so the pool × k kernel table and the pool's vectors stay bounded; plus each point's nearest items.
+  const m = constant.referenceIndex.length;
+  const maxPool = o.refine ? Math.max(o.k, Math.min(Math.floor(o.refinePoolEntries / o.k), Math.floor(2 ** 26 / d))) : 0;
+  const picked = m <= maxPool ? range(0, m) : rng.sample(m, maxPool);
+  const poolRows: number[] = [];
+  const poolCValues: number[] = [];
+  const inPool = new Set<number>();
+  for (const pos of picked) {
+    poolRows.push(constant.referenceIndex[pos]);
+    poolCValues.push(constant.rowMeans[pos]);
+    inPool.add(constant.referenceIndex[pos]);
+  }
+  const extras = Array.from(new Set([...snapped, ...(o.refine ? Array.from(cand.index) : [])])).filter((r) => r >= 0 && !inPool.has(r));
+  if (extras.length) {
+    const extraC = await dataTermMeans(constant.reference, backend, kernel, rows.gather(extras), extras.length);
+    extras.forEach((r, i) => {
+      poolRows.push(r);
+      poolCValues.push(extraC[i]);
+    });
+  }
   const pool = rows.gather(poolRows);
-  const poolC = await dataTermMeans(scoring, backend, kernel, pool, poolRows.length);
+  const poolC = Float64Array.from(poolCValues);
   const slotOf = new Map(poolRows.map((r, i) => [r, i]));
   const refined = await refineBySwaps(backend, kernel, {
     pool,
@@ -236,7 +254,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
     },
     discrepancy: {
       value: finalD2,
-      constant,
+      constant: { value: constant.value, exact: constant.exact, sampleRows: constant.sampleRows },
       random: { median: randomMedian, draws: randomFinal },
       ratioToRandom: randomMedian > 0 ? finalD2 / randomMedian : NaN,
       prefix: curve.map((value, m) => ({ m: m + 1, value, random: median(draws.map((dr) => dr[m])) })),

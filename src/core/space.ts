@@ -53,9 +53,9 @@ export function columnMoments(rows: RowSource, blockRows = 16_384): { mean: Floa
 export async function prepareSpace(source: RowSource, spec: SpaceSpec, backend: ComputeBackend, rng: Rng): Promise<PreparedSpace> {
   const { mean, std } = columnMoments(source);
   const shift = Float32Array.from(mean);
-  if (spec.kind === 'raw') return { rows: new AffineRows(source, shift, null), spec };
+  if (spec.kind === 'raw') return { rows: materialise(new AffineRows(source, shift, null)), spec };
   if (spec.kind === 'standardize') {
-    return { rows: new AffineRows(source, shift, Float32Array.from(std, (s) => (s > 0 ? 1 / s : 0))), spec };
+    return { rows: materialise(new AffineRows(source, shift, Float32Array.from(std, (s) => (s > 0 ? 1 / s : 0)))), spec };
   }
   const centred = new AffineRows(source, shift, null);
   const d = source.cols;
@@ -93,6 +93,18 @@ export async function prepareSpace(source: RowSource, spec: SpaceSpec, backend: 
     spec,
     explainedVarianceRatio: order.map((i) => (totalVariance > 0 ? Math.max(values[i], 0) / totalVariance : 0)),
   };
+}
+
+/** Rows held in memory after transformation, up to this many values (1 GiB of float32). */
+const MATERIALISE_MAX_VALUES = 2 ** 28;
+
+/**
+ * The descent gathers a random minibatch every iteration; transforming those rows on the fly
+ * costs a second pass over them, so a dataset that fits is transformed once, up front.
+ */
+function materialise(rows: AffineRows): RowSource {
+  if (rows.rows * rows.cols > MATERIALISE_MAX_VALUES) return rows;
+  return new DenseRows(rows.read(0, rows.rows), rows.rows, rows.cols);
 }
 
 /** (XᵀX)·Z for a d×l matrix Z, streamed over row blocks: Σ_b X_bᵀ (X_b Z). */

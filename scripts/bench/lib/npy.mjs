@@ -1,0 +1,34 @@
+// Minimal .npy (format version 1.0) writer for a row-major float32 matrix. Written by hand rather
+// than through the project's readers so the bench's input does not depend on code under test.
+import { writeFile } from 'node:fs/promises';
+
+/**
+ * Writes `data` (rows × cols float32, row-major) to `path` as a little-endian '<f4' .npy.
+ * The header length is padded with spaces so that magic + version + length + header is a
+ * multiple of 64 bytes and ends in '\n', as numpy itself does (NEP 1), so the data section is
+ * aligned for memory-mapping readers.
+ */
+export async function writeNpyFloat32(path, data, rows, cols) {
+  if (data.length !== rows * cols) throw new RangeError(`data has ${data.length} values, expected ${rows}×${cols}`);
+  const dict = `{'descr': '<f4', 'fortran_order': False, 'shape': (${rows}, ${cols}), }`;
+  const preamble = 6 + 2 + 2; // magic "\x93NUMPY", version 1.0, uint16 header length
+  const unpadded = preamble + dict.length + 1; // + trailing '\n'
+  const total = Math.ceil(unpadded / 64) * 64;
+  const header = dict + ' '.repeat(total - unpadded) + '\n';
+  if (header.length > 0xffff) throw new RangeError('header too long for .npy version 1.0');
+
+  const head = Buffer.alloc(preamble + header.length);
+  head[0] = 0x93;
+  head.write('NUMPY', 1, 'latin1');
+  head[6] = 1;
+  head[7] = 0;
+  head.writeUInt16LE(header.length, 8);
+  head.write(header, preamble, 'latin1');
+
+  // Float32Array is host-endian; every platform Node 20 supports here is little-endian, but check
+  // rather than silently writing a file numpy would misread.
+  if (new Uint8Array(new Uint16Array([1]).buffer)[0] !== 1) throw new Error('big-endian host: .npy writer assumes little-endian');
+  const body = Buffer.from(data.buffer, data.byteOffset, data.byteLength);
+  await writeFile(path, Buffer.concat([head, body]));
+  return head.length + body.length;
+}

@@ -1,0 +1,131 @@
+import { closeSync, createReadStream, fstatSync, openSync, readFileSync, readSync } from 'node:fs';
+import { join } from 'node:path';
+import { createInterface } from 'node:readline';
+import { CairnError, requireArg } from '../errors.js';
+import { ITEMS_FILE, MATRIX_FILE } from './dataset-writer.js';
+import type { DatasetFormat } from './reader.js';
+
+/** Layout version of a stored dataset folder; bump when the files change meaning. */
+export const STORE_VERSION = 1;
+export const META_FILE = 'meta.json';
+
+/** The meta.json of a stored dataset. */
+export interface StoredDatasetMeta {
+  id: string;
+  rows: number;
+  cols: number;
+  format: DatasetFormat;
+  /** Base name of the ingested file. */
+  sourceName: string;
+  sourceBytes: number;
+  /** Hex SHA-256 of the ingested file. */
+  sha256: string;
+  hasLabels: boolean;
+  droppedNonFinite: number;
+  skippedImages: number;
+  /** ISO 8601. */
+  createdAt: string;
+  version: number;
+}
+
+export interface StoredDataset {
+  readonly dir: string;
+  readonly meta: StoredDatasetMeta;
+  /** Rows start..start+count-1, row-major (count × cols). */
+  readRows(start: number, count: number): Float32Array;
+  /** The whole rows × cols matrix in memory (rows·cols·4 bytes). */
+  loadMatrix(): Float32Array;
+  /** Ids and labels in row order. */
+  readItems(): Promise<{ ids: string[]; labels: (string | null)[] }>;
+}
+
+/** Largest single read: readSync takes at most 2 GiB − 1 bytes at once. */
+const READ_CHUNK = 1024 ** 3;
+
+/**
+ * Opens a stored dataset. Reads are positional and open the matrix file per call, so a
+ * StoredDataset holds no file descriptor and needs no closing.
+ */
+export function openDataset(storeDir: string, datasetId: string): StoredDataset {
+  const dir = join(storeDir, datasetId);
+  let meta: StoredDatasetMeta;
+  try {
+    meta = JSON.parse(readFileSync(join(dir, META_FILE), 'utf8')) as StoredDatasetMeta;
+  } catch (err) {
+    if ((err as NodeJS.ErrnoException).code === 'ENOENT') throw new CairnError('DATASET_NOT_FOUND', undefined, { datasetId });
+    throw new CairnError('DATASET_STORE_CORRUPT', undefined, { datasetId }, { cause: err });
+  }
+  if (meta.version !== STORE_VERSION || !(meta.rows >= 1) || !(meta.cols >= 1)) {
+    throw new CairnError('DATASET_STORE_CORRUPT', `Unsupported or damaged meta.json (version ${meta.version}).`, { datasetId });
+  }
+  const { rows, cols } = meta;
+  const matrixPath = join(dir, MATRIX_FILE);
+
+  function readInto(target: Float32Array, startRow: number): void {
+    const bytes = new Uint8Array(target.buffer, target.byteOffset, target.byteLength);
+    const fd = openMatrix();
+    try {
+      const size = fstatSync(fd).size;
+      if (size !== rows * cols * 4) {
+        throw new CairnError('DATASET_STORE_CORRUPT', `${MATRIX_FILE} has ${size} bytes, expected ${rows * cols * 4}.`, { datasetId });
+      }
+      let done = 0;
+      while (done < bytes.length) {
+        const n = readSync(fd, bytes, done, Math.min(READ_CHUNK, bytes.length - done), startRow * cols * 4 + done);
+        if (n === 0) throw new CairnError('DATASET_STORE_CORRUPT', `${MATRIX_FILE} ended early.`, { datasetId });
+        done += n;
+      }
+    } finally {
+      closeSync(fd);
+    }
+  }
+
+  function openMatrix(): number {
+    try {
+      return openSync(matrixPath, 'r');
+    } catch (err) {
+      if ((err as NodeJS.ErrnoException).code === 'ENOENT') throw new CairnError('DATASET_NOT_FOUND', undefined, { datasetId });
+      throw err;
+    }
+  }
+
+  return {
+    dir,
+    meta,
+    readRows(start, count) {
+      requireArg(Number.isInteger(start) && start >= 0 && start <= rows, 'start', `an integer in 0..${rows}`, start);
+      requireArg(Number.isInteger(count) && count >= 0 && start + count <= rows, 'count', `an integer in 0..${rows - start}`, count);
+      const out = new Float32Array(count * cols);
+      if (count > 0) readInto(out, start);
+      return out;
+    },
+    loadMatrix() {
+      const out = new Float32Array(rows * cols);
+      readInto(out, 0);
+      return out;
+    },
+    async readItems() {
+      const ids: string[] = [];
+      const labels: (string | null)[] = [];
+      const input = createReadStream(join(dir, ITEMS_FILE), 'utf8');
+      const lines = createInterface({ input, crlfDelay: Infinity });
+      try {
+        for await (const line of lines) {
+          const item = JSON.parse(line) as { id: string; label: string | null };
+          ids.push(item.id);
+          labels.push(item.label);
+        }
+      } catch (err) {
+        if ((err as NodeJS.ErrnoException).code === 'ENOENT') throw new CairnError('DATASET_NOT_FOUND', undefined, { datasetId });
+        throw new CairnError('DATASET_STORE_CORRUPT', `${ITEMS_FILE} cannot be read.`, { datasetId }, { cause: err });
+      } finally {
+        lines.close();
+        input.destroy();
+      }
+      if (ids.length !== rows) {
+        throw new CairnError('DATASET_STORE_CORRUPT', `${ITEMS_FILE} has ${ids.length} items, expected ${rows}.`, { datasetId });
+      }
+      return { ids, labels };
+    },
+  };
+}
