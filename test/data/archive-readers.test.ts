@@ -221,6 +221,27 @@ describe('zip specifics', () => {
     const absolute = buildZip([{ name: '/etc/a.png', data: red }]);
     await expectCode(zipReader.read(tmp.write('abs.zip', absolute), new MemorySink(), readOptions()), 'ARCHIVE_UNSAFE_PATH');
   });
+
+  it('refuses encrypted entries and unknown compression methods', async () => {
+    // General-purpose flag bit 0 marks an encrypted entry; method 12 is bzip2 (APPNOTE 4.4.4, 4.4.5).
+    const patch = (bytes: Buffer, edit: (b: Buffer, central: number, local: number) => void): Buffer => {
+      const b = Buffer.from(bytes);
+      edit(b, b.indexOf(Buffer.from([0x50, 0x4b, 0x01, 0x02])), b.indexOf(Buffer.from([0x50, 0x4b, 0x03, 0x04])));
+      return b;
+    };
+    const plain = buildZip([{ name: 'a.png', data: red, method: 'store' }]);
+    // Deflated, since a stored encrypted entry must also carry the 12-byte encryption header.
+    const encrypted = patch(buildZip([{ name: 'a.png', data: red }]), (b, c, l) => {
+      b.writeUInt16LE(b.readUInt16LE(c + 8) | 1, c + 8);
+      b.writeUInt16LE(b.readUInt16LE(l + 6) | 1, l + 6);
+    });
+    await expectCode(zipReader.read(tmp.write('enc.zip', encrypted), new MemorySink(), readOptions()), 'ARCHIVE_UNSUPPORTED_ENTRY');
+    const bzip2 = patch(plain, (b, c, l) => {
+      b.writeUInt16LE(12, c + 10);
+      b.writeUInt16LE(12, l + 8);
+    });
+    await expectCode(zipReader.read(tmp.write('bz2.zip', bzip2), new MemorySink(), readOptions()), 'ARCHIVE_UNSUPPORTED_ENTRY');
+  });
 });
 
 describe('tar specifics', () => {
