@@ -1,9 +1,9 @@
 import type { ComputeBackend } from '../compute/backend.js';
 import { kernelG, kernelH, type KernelSpec } from '../compute/kernel-spec.js';
 import { createOptimizerState, optimizerStep, type OptimizerKind, type OptimizerState } from './optimizer.js';
-import type { Rng } from './random.js';
+import { Rng } from './random.js';
 import type { RowSource } from './rows.js';
-import { dataTermMeans } from './discrepancy.js';
+import { dataTermMeans, range } from './discrepancy.js';
 import { solveWeights } from './weights.js';
 
 export interface DescentOptions {
@@ -39,6 +39,8 @@ export interface DescentState {
   windowStartLoss: number | null;
   elapsedMs: number;
   gradScale: number | null;
+  /** Generator state the row permutation is drawn from, so a resumed descent sees the same one. */
+  shuffleState: number[];
 }
 
 export interface DescentProgress {
@@ -78,8 +80,10 @@ export interface DescentContext {
   shouldStop?: () => boolean;
 }
 
-export function initialDescentState(points: Float32Array, k: number, kind: OptimizerKind): DescentState {
+export function initialDescentState(points: Float32Array, k: number, kind: OptimizerKind, rng: Rng): DescentState {
+  const shuffleState = new Rng(rng.nextUint32()).state();
   return {
+    shuffleState,
     points,
     weights: new Float64Array(k).fill(1 / k),
     optimizer: createOptimizerState(kind, points.length),
@@ -92,6 +96,9 @@ export function initialDescentState(points: Float32Array, k: number, kind: Optim
     gradScale: null,
   };
 }
+
+/** Largest dataset (values) for which the descent keeps one shuffled copy of the rows: 1 GiB. */
+const SHUFFLED_COPY_MAX_VALUES = 2 ** 28;
 
 /**
  * Minibatch stochastic descent on D²(μ, ν) over the k points. The data term's gradient
@@ -116,6 +123,7 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
   let stopReason: StopReason = 'iterations';
   let fullBatch: Float32Array | undefined;
   let batchBuffer: Float32Array | undefined;
+  let shuffled: Float32Array | undefined;
 
   while (state.iteration < o.maxIterations) {
     const elapsed = now() - started;
@@ -124,7 +132,15 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
       stopReason = 'time';
       break;
     }
-    const batch = B === n ? (fullBatch ??= rows.read(0, n)) : rows.gather(rng.sample(n, B), (batchBuffer ??= new Float32Array(B * d)));
+    let batch: Float32Array;
+    if (B === n) batch = fullBatch ??= rows.read(0, n);
+    else if (n * d <= SHUFFLED_COPY_MAX_VALUES) {
+      // A window at a random offset of one random permutation of the rows is a uniformly random
+      // B-subset, read without copying; gathering B scattered rows each step cost more than the kernel.
+      shuffled ??= rows.gather(Rng.fromState(state.shuffleState).shuffle(range(0, n)));
+      const offset = rng.int(n - B + 1);
+      batch = shuffled.subarray(offset * d, (offset + B) * d);
+    } else batch = rows.gather(rng.sample(n, B), (batchBuffer ??= new Float32Array(B * d)));
     const stats = await backend.dataTerm(batch, B, state.points, k, d, kernel);
     const self = await selfTerm(backend, kernel, state.points, state.weights, k, d);
 

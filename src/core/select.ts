@@ -4,9 +4,10 @@ import { CairnError } from '../errors.js';
 import { coverageStats, type LabelCodes } from './coverage.js';
 import { runDescent, initialDescentState, selfTerm } from './descent.js';
 import { constantTerm, dataTermMeans, discrepancyFromTerms, range } from './discrepancy.js';
-import { parseSelectOptions, type SelectOptionsInput } from './options.js';
+import { autoIterations, parseSelectOptions, type SelectOptionsInput } from './options.js';
 import { greedyPrefixOrder, prefixCurve } from './ordering.js';
 import { Rng } from './random.js';
+import { greedyForward } from './greedy.js';
 import { refineBySwaps } from './refine.js';
 import type { SelectionResult, SelectProgress } from './result.js';
 import { DenseRows, type RowSource } from './rows.js';
@@ -95,7 +96,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   endPhase('seed');
   checkAbort();
 
-  const state = initialDescentState(points, o.k, o.optimizer);
+  const state = initialDescentState(points, o.k, o.optimizer, rng);
   const descent = await runDescent(
     {
       rows,
@@ -118,7 +119,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
     {
       optimizer: o.optimizer,
       batchSize: o.batchSize,
-      maxIterations: o.maxIterations,
+      maxIterations: o.maxIterations ?? autoIterations(o.k),
       timeBudgetMs: o.timeBudgetSeconds ? o.timeBudgetSeconds * 1000 : null,
       learningRate: o.learningRate,
       finalLearningRateFraction: o.finalLearningRateFraction,
@@ -166,19 +167,32 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   const pool = rows.gather(poolRows);
   const poolC = Float64Array.from(poolCValues);
   const slotOf = new Map(poolRows.map((r, i) => [r, i]));
-  const refined = await refineBySwaps(backend, kernel, {
-    pool,
-    poolSize: poolRows.length,
-    d,
-    c: poolC,
-    slots: Int32Array.from(snapped, (r) => slotOf.get(r)!),
-    weights: descentWeights,
-    optimizeWeights: o.weights === 'optimized',
-    maxSwaps: o.refine ? 20 * o.k : 0,
-    rounds: o.refine ? 3 : 1,
-  });
+  const refineFrom = (slots: Int32Array, weights: Float64Array) =>
+    refineBySwaps(backend, kernel, {
+      pool,
+      poolSize: poolRows.length,
+      d,
+      c: poolC,
+      slots,
+      weights,
+      optimizeWeights: o.weights === 'optimized',
+      maxSwaps: o.refine ? 20 * o.k : 0,
+      rounds: o.refine ? 3 : 1,
+    });
+  const fromDescent = await refineFrom(Int32Array.from(snapped, (r) => slotOf.get(r)!), descentWeights);
+  // A second start that does not depend on the descent's basin: greedy forward selection over the
+  // same candidates. Swaps run from both; the lower D² wins (the choice is in trace.refineStart).
+  let refined = fromDescent;
+  let refineStart: 'descent' | 'greedy' = 'descent';
+  if (o.refine) {
+    const fromGreedy = await refineFrom(await greedyForward(backend, kernel, pool, poolRows.length, d, poolC, o.k), uniform);
+    if (fromGreedy.after < fromDescent.after) {
+      refined = fromGreedy;
+      refineStart = 'greedy';
+    }
+  }
   const chosen = Int32Array.from(refined.slots, (u) => poolRows[u]);
-  const snappedD2 = refined.before - constant.value;
+  const snappedD2 = fromDescent.before - constant.value;
   const refinedD2 = refined.after - constant.value;
   endPhase('refine');
   checkAbort();
@@ -264,6 +278,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
       iterations: state.iteration,
       stopReason: descent.stopReason,
       swaps: refined.swaps,
+      refineStart,
       weightSolver,
       loss: descent.trace,
       seconds,

@@ -1,0 +1,294 @@
+import os from 'node:os';
+import * as ort from 'onnxruntime-node';
+import { CairnError, requireArg } from '../errors.js';
+import type { Assignment, ComputeBackend, DataTermStats, NearestRows } from './backend.js';
+import type { KernelSpec } from './kernel-spec.js';
+import { buildGraph, GRAPH_KEYS, type GraphKey } from './onnx-graphs.js';
+import { ReferenceBackend } from './reference-backend.js';
+
+export interface OnnxBackendOptions {
+  /** ORT intra-op threads (MLAS Gemm and elementwise loops). Default: os.availableParallelism(). */
+  threads?: number;
+  /**
+   * Calls whose work (rows × points × dims) is below this run on the ReferenceBackend instead.
+   * A session.run has ≈ 45–60 µs of fixed cost here (feeds, shape inference, output copies, the
+   * setImmediate hop); plain JS needs about that for 2e4 multiply-adds (measured on dataTerm and
+   * assign: break-even near n·k·d = 1.6e4, ONNX 4–9× ahead at 1e5). Default 2e4. 0 sends every
+   * non-empty call to ONNX (the conformance test).
+   */
+  minWork?: number;
+  /**
+   * Most floats in one n×k intermediate per session.run; larger calls are split into row (or,
+   * for nearestRows, point) blocks and the partial sums added in float64. ORT's arena keeps each
+   * session's peak allocation for the session's lifetime, so this bounds resident memory at about
+   * five intermediates (dataTerm) × 4 bytes × blockElems per session. Default 2^22 (16 MB each).
+   */
+  blockElems?: number;
+}
+
+export interface WarmUpShape {
+  n: number;
+  k: number;
+  d: number;
+  /** nearestRows' m; default min(n, 8). */
+  m?: number;
+}
+
+type Feeds = Record<string, ort.Tensor>;
+
+/**
+ * The ComputeBackend on onnxruntime's CPU provider: one small graph per operation (see
+ * onnx-graphs.ts) with symbolic dims, so each session is built once and serves every shape and
+ * kernel parameter. Work is float32; sums come back as float64 arrays but are float32 accurate.
+ *
+ * session.run executes synchronously on the JS thread (the binding only defers it with
+ * setImmediate), so a long call blocks the event loop; callers that must stay responsive should
+ * keep blocks modest or run the backend in a worker.
+ */
+export class OnnxBackend implements ComputeBackend {
+  readonly name = 'onnx';
+  private readonly reference = new ReferenceBackend();
+  private readonly sessions = new Map<GraphKey, Promise<ort.InferenceSession>>();
+  private disposed = false;
+
+  private constructor(
+    readonly threads: number,
+    readonly minWork: number,
+    readonly blockElems: number,
+  ) {}
+
+  static async create(options: OnnxBackendOptions = {}): Promise<OnnxBackend> {
+    const { threads = os.availableParallelism(), minWork = 2e4, blockElems = 2 ** 22 } = options;
+    requireArg(Number.isInteger(threads) && threads >= 1, 'threads', 'an integer ≥ 1', threads);
+    requireArg(Number.isFinite(minWork) && minWork >= 0, 'minWork', 'a finite number ≥ 0', minWork);
+    requireArg(Number.isInteger(blockElems) && blockElems >= 1, 'blockElems', 'an integer ≥ 1', blockElems);
+    return new OnnxBackend(threads, minWork, blockElems);
+  }
+
+  async sqDistances(x: Float32Array, n: number, p: Float32Array, k: number, d: number): Promise<Float32Array> {
+    checkPair(x, n, p, k, d);
+    if (this.tiny(n * k * d)) return this.reference.sqDistances(x, n, p, k, d);
+    const out = await this.run('sqDistances', { x: f32(x, [n, d]), p: f32(p, [k, d]) });
+    return out.d2.data as Float32Array;
+  }
+
+  async kernelMatrix(a: Float32Array, na: number, b: Float32Array, nb: number, d: number, kernel: KernelSpec): Promise<Float64Array> {
+    checkPair(a, na, b, nb, d);
+    checkKernel(kernel);
+    if (this.tiny(na * nb * d)) return this.reference.kernelMatrix(a, na, b, nb, d, kernel);
+    const out = await this.run(`kernelMatrix:${kernel.kind}`, { x: f32(a, [na, d]), p: f32(b, [nb, d]), ...param(kernel) });
+    return Float64Array.from(out.h.data as Float32Array);
+  }
+
+  async kernelColumnSums(x: Float32Array, n: number, c: Float32Array, m: number, d: number, kernel: KernelSpec): Promise<Float64Array> {
+    checkPair(x, n, c, m, d);
+    checkKernel(kernel);
+    if (this.tiny(n * m * d)) return this.reference.kernelColumnSums(x, n, c, m, d, kernel);
+    const sums = new Float64Array(m);
+    const fixed = { p: f32(c, [m, d]), ...param(kernel) };
+    for (const [r0, r1] of this.blocks(n, m)) {
+      const out = await this.run(`kernelColumnSums:${kernel.kind}`, { x: rowBlock(x, r0, r1, d), ...fixed });
+      addInto(sums, out.hSum.data as Float32Array);
+    }
+    return sums;
+  }
+
+  async dataTerm(x: Float32Array, n: number, p: Float32Array, k: number, d: number, kernel: KernelSpec): Promise<DataTermStats> {
+    checkPair(x, n, p, k, d);
+    checkKernel(kernel);
+    if (this.tiny(n * k * d)) return this.reference.dataTerm(x, n, p, k, d, kernel);
+    const [hSum, gSum] = [new Float64Array(k), new Float64Array(k)];
+    let gx: Float32Array | null = null;
+    let gx64: Float64Array | null = null;
+    const fixed = { p: f32(p, [k, d]), ...param(kernel) };
+    for (const [r0, r1] of this.blocks(n, k)) {
+      const out = await this.run(`dataTerm:${kernel.kind}`, { x: rowBlock(x, r0, r1, d), ...fixed });
+      addInto(hSum, out.hSum.data as Float32Array);
+      addInto(gSum, out.gSum.data as Float32Array);
+      if (r0 === 0 && r1 === n) gx = out.gx.data as Float32Array;
+      else addInto((gx64 ??= new Float64Array(k * d)), out.gx.data as Float32Array);
+    }
+    return { hSum, gSum, gx: gx ?? Float32Array.from(gx64 ?? []) };
+  }
+
+  async assign(x: Float32Array, n: number, p: Float32Array, k: number, d: number, kernel?: KernelSpec): Promise<Assignment> {
+    checkPair(x, n, p, k, d);
+    requireArg(k >= 1 || n === 0, 'k', 'at least 1 when there are rows to assign', k);
+    if (kernel) checkKernel(kernel);
+    if (this.tiny(n * k * d)) return this.reference.assign(x, n, p, k, d, kernel);
+    const [index, sqDist, hSum] = [new Int32Array(n), new Float32Array(n), kernel ? new Float64Array(k) : null];
+    const fixed = { p: f32(p, [k, d]), ...(kernel ? param(kernel) : {}) };
+    for (const [r0, r1] of this.blocks(n, k)) {
+      const out = await this.run(kernel ? `assign:${kernel.kind}` : 'assign', { x: rowBlock(x, r0, r1, d), ...fixed });
+      index.set(out.index.data as Int32Array, r0);
+      sqDist.set(out.sqDist.data as Float32Array, r0);
+      if (hSum) addInto(hSum, out.hSum.data as Float32Array);
+    }
+    return { index, sqDist, hSum };
+  }
+
+  /**
+   * TopK orders equal values by lower index, as the reference does; but distances are float32
+   * here, so rows whose float64 distances differ by less than the rounding may swap places.
+   */
+  async nearestRows(x: Float32Array, n: number, p: Float32Array, k: number, d: number, m: number): Promise<NearestRows> {
+    checkPair(x, n, p, k, d);
+    requireArg(Number.isInteger(m) && m >= 0 && m <= n, 'm', `an integer in [0, n = ${n}]`, m);
+    if (m === 0 || this.tiny(n * k * d)) return this.reference.nearestRows(x, n, p, k, d, m);
+    const [index, sqDist] = [new Int32Array(k * m), new Float32Array(k * m)];
+    const fixed = { x: f32(x, [n, d]), m: int64(m) };
+    // Each point's ranking is independent, so the k×n block is split over points, not rows.
+    for (const [j0, j1] of this.blocks(k, n)) {
+      const out = await this.run('nearestRows', { p: rowBlock(p, j0, j1, d), ...fixed });
+      index.set(out.index.data as Int32Array, j0 * m);
+      sqDist.set(out.sqDist.data as Float32Array, j0 * m);
+    }
+    return { index, sqDist };
+  }
+
+  async gemm(a: Float32Array, aRows: number, aCols: number, b: Float32Array, bRows: number, bCols: number, transA: boolean, transB: boolean): Promise<Float32Array> {
+    for (const [name, v] of Object.entries({ aRows, aCols, bRows, bCols })) checkDim(name, v);
+    const rows = transA ? aCols : aRows;
+    const inner = transA ? aRows : aCols;
+    const cols = transB ? bRows : bCols;
+    if ((transB ? bCols : bRows) !== inner) {
+      throw new CairnError('DIMENSION_MISMATCH', `gemm: inner dimensions differ (${inner} vs ${transB ? bCols : bRows}).`);
+    }
+    checkLength('a', a, aRows * aCols);
+    checkLength('b', b, bRows * bCols);
+    if (this.tiny(rows * inner * cols)) return this.reference.gemm(a, aRows, aCols, b, bRows, bCols, transA, transB);
+    const key: GraphKey = `gemm:${transA ? 't' : 'n'}${transB ? 't' : 'n'}`;
+    const out = await this.run(key, { a: f32(a, [aRows, aCols]), b: f32(b, [bRows, bCols]) });
+    return out.c.data as Float32Array;
+  }
+
+  /**
+   * Builds every session (or those in `keys`) and runs it once at the block shape a call of this
+   * shape will use, so the first real call pays neither session creation (graph optimisation)
+   * nor the arena's first allocations.
+   */
+  async warmUp(shapes: readonly WarmUpShape[], keys: readonly GraphKey[] = GRAPH_KEYS): Promise<void> {
+    const zeros = (rows: number, cols: number) => f32(new Float32Array(rows * cols), [rows, cols]);
+    for (const { n, k, d, m = Math.min(8, n) } of shapes) {
+      for (const v of [n, k, d]) requireArg(Number.isInteger(v) && v >= 1, 'warm-up shape', 'positive integers n, k, d', { n, k, d });
+      for (const key of keys) {
+        const [op, kind = ''] = key.split(':');
+        if (op === 'gemm') {
+          // op(A) is n×d and op(B) d×k, stored transposed where the key says so.
+          await this.run(key, { a: kind[0] === 't' ? zeros(d, n) : zeros(n, d), b: kind[1] === 't' ? zeros(k, d) : zeros(d, k) });
+          continue;
+        }
+        const rowBlocked = op === 'dataTerm' || op === 'assign' || op === 'kernelColumnSums';
+        const feeds: Feeds = { x: zeros(rowBlocked ? Math.min(n, this.blockRows(k)) : n, d), p: zeros(k, d) };
+        if (op === 'nearestRows') Object.assign(feeds, { p: zeros(Math.min(k, this.blockRows(n)), d), m: int64(Math.min(m, n)) });
+        if (kind === 'energy') Object.assign(feeds, param({ kind, a: 1 }));
+        if (kind === 'gaussian') Object.assign(feeds, param({ kind, sigma: 1 }));
+        await this.run(key, feeds);
+      }
+    }
+  }
+
+  /** Rows per session.run when the other side of the block has `cols` entries. */
+  private blockRows(cols: number): number {
+    return Math.max(1, Math.floor(this.blockElems / Math.max(1, cols)));
+  }
+
+  /** [start, end) ranges covering `rows` in blocks of blockRows(cols). */
+  private *blocks(rows: number, cols: number): Generator<[number, number]> {
+    const step = this.blockRows(cols);
+    for (let r = 0; r < rows; r += step) yield [r, Math.min(rows, r + step)];
+  }
+
+  async dispose(): Promise<void> {
+    this.disposed = true;
+    const pending = [...this.sessions.values()];
+    this.sessions.clear();
+    await Promise.all(pending.map(async (s) => (await s.catch(() => null))?.release()));
+  }
+
+  /** Empty shapes go to the reference too: ORT's zero-sized tensors are legal but not worth a session. */
+  private tiny(work: number): boolean {
+    return work === 0 || work < this.minWork;
+  }
+
+  private session(key: GraphKey): Promise<ort.InferenceSession> {
+    let s = this.sessions.get(key);
+    if (!s) {
+      s = ort.InferenceSession.create(buildGraph(key), {
+        intraOpNumThreads: this.threads,
+        interOpNumThreads: 1,
+        graphOptimizationLevel: 'all',
+        executionMode: 'sequential',
+        // Every session has its own intra-op pool; spinning workers of the previous call's session
+        // would steal cores from the next one (measured 2–3× slower when alternating graphs).
+        extra: { session: { intra_op: { allow_spinning: '0' } } },
+      });
+      // A failed creation is not cached, so a later call can retry.
+      s.catch(() => this.sessions.delete(key));
+      this.sessions.set(key, s);
+    }
+    return s;
+  }
+
+  private async run(key: GraphKey, feeds: Feeds): Promise<ort.InferenceSession.OnnxValueMapType> {
+    if (this.disposed) throw new CairnError('COMPUTE_BACKEND_FAILED', 'The ONNX backend has been disposed.');
+    try {
+      return await (await this.session(key)).run(feeds);
+    } catch (cause) {
+      const message = cause instanceof Error ? cause.message : String(cause);
+      throw new CairnError('COMPUTE_BACKEND_FAILED', `ONNX graph ${key} failed: ${message}`, { graph: key }, { cause });
+    }
+  }
+}
+
+/**
+ * Wraps the first rows×cols values without copying. ORT rejects SharedArrayBuffer-backed arrays,
+ * so those (only those) are copied into a plain buffer first.
+ */
+function f32(data: Float32Array, dims: [number, number]): ort.Tensor {
+  let view = data.length === dims[0] * dims[1] ? data : data.subarray(0, dims[0] * dims[1]);
+  if (!(view.buffer instanceof ArrayBuffer)) view = new Float32Array(view);
+  return new ort.Tensor('float32', view, dims);
+}
+
+function rowBlock(m: Float32Array, r0: number, r1: number, d: number): ort.Tensor {
+  return f32(m.subarray(r0 * d, r1 * d), [r1 - r0, d]);
+}
+
+function addInto(acc: Float64Array, part: Float32Array): void {
+  for (let i = 0; i < acc.length; i++) acc[i] += part[i];
+}
+
+function int64(v: number): ort.Tensor {
+  return new ort.Tensor('int64', BigInt64Array.of(BigInt(v)), [1]);
+}
+
+/** Kernel parameters are graph inputs (0-d tensors), so one session serves every a or σ. */
+function param(kernel: KernelSpec): Feeds {
+  if (kernel.kind === 'energy') return { a: new ort.Tensor('float32', Float32Array.of(kernel.a), []) };
+  return { sigma: new ort.Tensor('float32', Float32Array.of(kernel.sigma), []) };
+}
+
+function checkDim(name: string, v: number): void {
+  requireArg(Number.isInteger(v) && v >= 0, name, 'an integer ≥ 0', v);
+}
+
+function checkLength(name: string, arr: Float32Array, needed: number): void {
+  // Longer arrays are accepted (a reused block buffer with a short last block); the prefix is used.
+  if (arr.length < needed) {
+    throw new CairnError('DIMENSION_MISMATCH', `${name} has ${arr.length} values; ${needed} needed.`, { name, length: arr.length, needed });
+  }
+}
+
+function checkPair(x: Float32Array, n: number, p: Float32Array, k: number, d: number): void {
+  checkDim('n', n);
+  checkDim('k', k);
+  checkDim('d', d);
+  checkLength('x', x, n * d);
+  checkLength('p', p, k * d);
+}
+
+function checkKernel(kernel: KernelSpec): void {
+  if (kernel.kind === 'energy') requireArg(Number.isFinite(kernel.a) && kernel.a >= 0, 'kernel.a', 'a finite number ≥ 0', kernel.a);
+  else requireArg(Number.isFinite(kernel.sigma) && kernel.sigma > 0, 'kernel.sigma', 'a finite number > 0', kernel.sigma);
+}

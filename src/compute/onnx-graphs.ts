@@ -1,0 +1,299 @@
+import onnxProto from 'onnx-proto';
+
+const { onnx } = onnxProto;
+type INode = onnxProto.onnx.INodeProto;
+type IAttr = onnxProto.onnx.IAttributeProto;
+type ITensor = onnxProto.onnx.ITensorProto;
+type IValueInfo = onnxProto.onnx.IValueInfoProto;
+
+const FLOAT = onnx.TensorProto.DataType.FLOAT;
+const INT32 = onnx.TensorProto.DataType.INT32;
+const INT64 = onnx.TensorProto.DataType.INT64;
+const A = onnx.AttributeProto.AttributeType;
+
+/**
+ * Opset 17 (IR 8, the newest IR onnx-proto 8 knows): ReduceSum takes axes as an input (≥ 13) but
+ * ReduceMin still takes them as an attribute (input only from 18), Shape has start/end (≥ 15).
+ */
+const OPSET = 17;
+const IR_VERSION = 8;
+
+export type KernelKind = 'energy' | 'gaussian';
+export type GraphKey =
+  | 'sqDistances'
+  | `kernelMatrix:${KernelKind}`
+  | `kernelColumnSums:${KernelKind}`
+  | `dataTerm:${KernelKind}`
+  | 'assign'
+  | `assign:${KernelKind}`
+  | 'nearestRows'
+  | `gemm:${'n' | 't'}${'n' | 't'}`;
+
+type Dim = string | number;
+
+/**
+ * Attributes always carry their type: protobufjs does not infer it from the field set, and ORT
+ * refuses an untyped attribute ("Field 'type' of 'attr' is required"); a float given to `i` or an
+ * int given to `f` would be silently truncated or zero.
+ */
+const attr = {
+  f: (name: string, f: number): IAttr => ({ name, type: A.FLOAT, f }),
+  i: (name: string, i: number): IAttr => ({ name, type: A.INT, i }),
+  ints: (name: string, ints: number[]): IAttr => ({ name, type: A.INTS, ints }),
+  t: (name: string, t: ITensor): IAttr => ({ name, type: A.TENSOR, t }),
+};
+
+class Graph {
+  private readonly nodes: INode[] = [];
+  private readonly inits: ITensor[] = [];
+  private readonly inputs: IValueInfo[] = [];
+  private readonly outputs: IValueInfo[] = [];
+  private seq = 0;
+
+  input(name: string, elemType: number, dims: Dim[]): string {
+    this.inputs.push(valueInfo(name, elemType, dims));
+    return name;
+  }
+
+  /**
+   * Renames the producer's output instead of appending an Identity, which ORT would run as one
+   * more full copy of e.g. the n×k distance matrix.
+   */
+  output(name: string, elemType: number, dims: Dim[], from: string): void {
+    for (const node of this.nodes) {
+      node.input = node.input?.map((v) => (v === from ? name : v));
+      node.output = node.output?.map((v) => (v === from ? name : v));
+    }
+    this.outputs.push(valueInfo(name, elemType, dims));
+  }
+
+  op(opType: string, input: string[], attribute: IAttr[] = [], output = `${opType.toLowerCase()}_${this.seq++}`): string {
+    return this.opN(opType, input, attribute, [output])[0];
+  }
+
+  opN(opType: string, input: string[], attribute: IAttr[], output: string[]): string[] {
+    this.nodes.push({ opType, input, output, attribute, name: output[0] });
+    return output;
+  }
+
+  floats(values: number[], dims: number[] = [values.length]): string {
+    const name = `cf_${this.seq++}`;
+    this.inits.push({ name, dataType: FLOAT, dims, floatData: values });
+    return name;
+  }
+
+  int64s(values: number[], dims: number[] = [values.length]): string {
+    const name = `ci_${this.seq++}`;
+    this.inits.push({ name, dataType: INT64, dims, int64Data: values });
+    return name;
+  }
+
+  encode(name: string): Uint8Array {
+    const graph = { name, node: this.nodes, initializer: this.inits, input: this.inputs, output: this.outputs };
+    const model = onnx.ModelProto.create({
+      irVersion: IR_VERSION,
+      producerName: 'cairn',
+      opsetImport: [{ domain: '', version: OPSET }],
+      graph,
+    });
+    return onnx.ModelProto.encode(model).finish();
+  }
+}
+
+function valueInfo(name: string, elemType: number, dims: Dim[]): IValueInfo {
+  const dim = dims.map((v) => (typeof v === 'number' ? { dimValue: v } : { dimParam: v }));
+  return { name, type: { tensorType: { elemType, shape: { dim } } } };
+}
+
+/** Row-wise squared norms as a column [rows, 1]. */
+function sqNorms(g: Graph, m: string): string {
+  return g.op('ReduceSum', [g.op('Mul', [m, m]), g.int64s([1])], [attr.i('keepdims', 1)]);
+}
+
+/** A [rows, 1] column of ones shaped like the rows of m. */
+function onesColumn(g: Graph, m: string): string {
+  const rows = g.op('Shape', [m], [attr.i('start', 0), attr.i('end', 1)]);
+  const shape = g.op('Concat', [rows, g.int64s([1])], [attr.i('axis', 0)]);
+  return g.op('ConstantOfShape', [shape], [attr.t('value', { dataType: FLOAT, dims: [1], floatData: [1] })]);
+}
+
+/**
+ * Augmented operands so that one Gemm yields |x|² + |p|² − 2x·p with no n×k broadcast pass:
+ *   X⁺ = [X, |x|², 1],  P⁺ = [−2P, 1, |p|² + shift].
+ * `shift` folds the energy kernel's a² into the same product. X⁺'s last column also makes
+ * G·X⁺ return Σ_i g_ij next to the gradient product.
+ */
+function augmented(g: Graph, x: string, p: string, shift?: string): { xAug: string; pAug: string } {
+  const xAug = g.op('Concat', [x, sqNorms(g, x), onesColumn(g, x)], [attr.i('axis', 1)]);
+  let pp = sqNorms(g, p);
+  if (shift) pp = g.op('Add', [pp, shift]);
+  const pAug = g.op('Concat', [g.op('Mul', [p, g.floats([-2], [])]), onesColumn(g, p), pp], [attr.i('axis', 1)]);
+  return { xAug, pAug };
+}
+
+/**
+ * Layout of the n×k block. 'rows' = [n, k] (row-wise results: argmin, kernel matrix);
+ * 'points' = [k, n], for per-point reductions: the sums then run along contiguous rows and the
+ * second product G·X⁺ is a plain (untransposed) Gemm, measurably faster in MLAS than Gᵀ·X⁺.
+ */
+type Layout = 'rows' | 'points';
+
+function product(g: Graph, xAug: string, pAug: string, layout: Layout): string {
+  const [l, r] = layout === 'rows' ? [xAug, pAug] : [pAug, xAug];
+  return g.op('Gemm', [l, r], [attr.i('transB', 1)]);
+}
+
+/** Clamped squared distances; ORT fuses the Gemm→Relu pair into one kernel (FusedGemm). */
+function distances(g: Graph, x: string, p: string, layout: Layout): string {
+  const { xAug, pAug } = augmented(g, x, p);
+  return g.op('Relu', [product(g, xAug, pAug, layout)]);
+}
+
+interface KernelBlock {
+  /** h over the block, or null when the kernel is cheaper to sum from `e` (Gaussian: h = −e). */
+  h: string | null;
+  /** energy: g = 1/S; gaussian: e = exp(−D/2σ²), with g = e/σ². */
+  e: string;
+  xAug: string;
+  /** Gaussian only: 1/σ², applied to the k-vectors rather than to the block. */
+  invS2: string | null;
+}
+
+/** Energy: S = sqrt(max(D + a², a²)) from one Gemm whose bias column already holds a²; h = S − a, g = 1/S. */
+function energyBlock(g: Graph, x: string, p: string, a: string, layout: Layout): KernelBlock {
+  const a2 = g.op('Mul', [a, a]);
+  const { xAug, pAug } = augmented(g, x, p, a2);
+  const s = g.op('Sqrt', [g.op('Max', [product(g, xAug, pAug, layout), a2])]);
+  return { h: g.op('Sub', [s, a]), e: g.op('Reciprocal', [s]), xAug, invS2: null };
+}
+
+/** Gaussian: E = exp(min(c·D, 0)) with c = −1/2σ² folded into P⁺ (k×d work, not n×k). */
+function gaussianBlock(g: Graph, x: string, p: string, sigma: string, layout: Layout): KernelBlock {
+  const invS2 = g.op('Reciprocal', [g.op('Mul', [sigma, sigma])]);
+  const c = g.op('Mul', [invS2, g.floats([-0.5], [])]);
+  const { xAug, pAug } = augmented(g, x, p);
+  const cd = g.op('Min', [product(g, xAug, g.op('Mul', [pAug, c]), layout), g.floats([0], [])]);
+  return { h: null, e: g.op('Exp', [cd]), xAug, invS2 };
+}
+
+function kernelBlock(g: Graph, kind: KernelKind, x: string, p: string, param: string, layout: Layout): KernelBlock {
+  return kind === 'energy' ? energyBlock(g, x, p, param, layout) : gaussianBlock(g, x, p, param, layout);
+}
+
+/** Σ over one axis of a 2-D block, dropping it. */
+function sum(g: Graph, m: string, axis: number): string {
+  return g.op('ReduceSum', [m, g.int64s([axis])], [attr.i('keepdims', 0)]);
+}
+
+/** Σ of h along `axis`; for the Gaussian −Σe, negated on the vector. */
+function hSum(g: Graph, block: KernelBlock, axis: number): string {
+  return block.h ? sum(g, block.h, axis) : g.op('Neg', [sum(g, block.e, axis)]);
+}
+
+function dataInputs(g: Graph): [string, string] {
+  return [g.input('x', FLOAT, ['n', 'd']), g.input('p', FLOAT, ['k', 'd'])];
+}
+
+function kernelParam(g: Graph, kind: KernelKind): string {
+  return g.input(kind === 'energy' ? 'a' : 'sigma', FLOAT, []);
+}
+
+/** Columns [from, to) of m; the bounds are 1-element int64 tensors, computed in-graph from the symbolic d. */
+function sliceCols(g: Graph, m: string, from: string, to: string): string {
+  return g.op('Slice', [m, from, to, g.int64s([1])]);
+}
+
+const builders: Record<GraphKey, (g: Graph) => void> = {
+  sqDistances(g) {
+    const [x, p] = dataInputs(g);
+    g.output('d2', FLOAT, ['n', 'k'], distances(g, x, p, 'rows'));
+  },
+  'kernelMatrix:energy': (g) => kernelMatrix(g, 'energy'),
+  'kernelMatrix:gaussian': (g) => kernelMatrix(g, 'gaussian'),
+  'kernelColumnSums:energy': (g) => kernelColumnSums(g, 'energy'),
+  'kernelColumnSums:gaussian': (g) => kernelColumnSums(g, 'gaussian'),
+  'dataTerm:energy': (g) => dataTerm(g, 'energy'),
+  'dataTerm:gaussian': (g) => dataTerm(g, 'gaussian'),
+  assign: (g) => assign(g),
+  'assign:energy': (g) => assign(g, 'energy'),
+  'assign:gaussian': (g) => assign(g, 'gaussian'),
+  nearestRows(g) {
+    const [x, p] = dataInputs(g);
+    const m = g.input('m', INT64, [1]);
+    const topkAttrs = [attr.i('axis', 1), attr.i('largest', 0), attr.i('sorted', 1)];
+    const [values, indices] = g.opN('TopK', [distances(g, x, p, 'points'), m], topkAttrs, ['topk_values', 'topk_indices']);
+    g.output('sqDist', FLOAT, ['k', 'm'], values);
+    g.output('index', INT32, ['k', 'm'], g.op('Cast', [indices], [attr.i('to', INT32)]));
+  },
+  'gemm:nn': (g) => gemm(g, false, false),
+  'gemm:nt': (g) => gemm(g, false, true),
+  'gemm:tn': (g) => gemm(g, true, false),
+  'gemm:tt': (g) => gemm(g, true, true),
+};
+
+function kernelMatrix(g: Graph, kind: KernelKind): void {
+  const [x, p] = dataInputs(g);
+  const block = kernelBlock(g, kind, x, p, kernelParam(g, kind), 'rows');
+  g.output('h', FLOAT, ['n', 'k'], block.h ?? g.op('Neg', [block.e]));
+}
+
+function kernelColumnSums(g: Graph, kind: KernelKind): void {
+  const [x, p] = dataInputs(g);
+  const block = kernelBlock(g, kind, x, p, kernelParam(g, kind), 'points');
+  g.output('hSum', FLOAT, ['k'], hSum(g, block, 1));
+}
+
+function dataTerm(g: Graph, kind: KernelKind): void {
+  const [x, p] = dataInputs(g);
+  const block = kernelBlock(g, kind, x, p, kernelParam(g, kind), 'points');
+  // G·X⁺ = [G·X | G·|x|² | Σ_i g]: the gradient product and gSum from one Gemm.
+  const prod = g.op('Gemm', [block.e, block.xAug]);
+  const d = g.op('Shape', [x], [attr.i('start', 1), attr.i('end', 2)]);
+  const gsCol = sliceCols(g, prod, g.op('Add', [d, g.int64s([1])]), g.op('Add', [d, g.int64s([2])]));
+  let gSum = g.op('Reshape', [gsCol, g.int64s([-1])]);
+  let gx = sliceCols(g, prod, g.int64s([0]), d);
+  // Gaussian: Σh = −Σe is the same column as Σg·σ², so no reduction over the block at all.
+  const hs = block.invS2 ? g.op('Neg', [gSum]) : hSum(g, block, 1);
+  if (block.invS2) {
+    gSum = g.op('Mul', [gSum, block.invS2]);
+    gx = g.op('Mul', [gx, block.invS2]);
+  }
+  g.output('hSum', FLOAT, ['k'], hs);
+  g.output('gSum', FLOAT, ['k'], gSum);
+  g.output('gx', FLOAT, ['k', 'd'], gx);
+}
+
+function assign(g: Graph, kind?: KernelKind): void {
+  const [x, p] = dataInputs(g);
+  const d = distances(g, x, p, 'rows');
+  const idx = g.op('ArgMin', [d], [attr.i('axis', 1), attr.i('keepdims', 0), attr.i('select_last_index', 0)]);
+  g.output('index', INT32, ['n'], g.op('Cast', [idx], [attr.i('to', INT32)]));
+  g.output('sqDist', FLOAT, ['n'], g.op('ReduceMin', [d], [attr.ints('axes', [1]), attr.i('keepdims', 0)]));
+  if (kind) {
+    // h from the clamped D already in hand: a few elementwise passes are cheaper than a second Gemm.
+    const param = kernelParam(g, kind);
+    const sq = g.op('Mul', [param, param]);
+    const h =
+      kind === 'energy'
+        ? g.op('Sub', [g.op('Sqrt', [g.op('Add', [d, sq])]), param])
+        : g.op('Exp', [g.op('Mul', [d, g.op('Div', [g.floats([-0.5], []), sq])])]);
+    const sums = sum(g, h, 0);
+    g.output('hSum', FLOAT, ['k'], kind === 'energy' ? sums : g.op('Neg', [sums]));
+  }
+}
+
+function gemm(g: Graph, transA: boolean, transB: boolean): void {
+  const a = g.input('a', FLOAT, ['ar', 'ac']);
+  const b = g.input('b', FLOAT, ['br', 'bc']);
+  const c = g.op('Gemm', [a, b], [attr.i('transA', transA ? 1 : 0), attr.i('transB', transB ? 1 : 0)]);
+  g.output('c', FLOAT, [transA ? 'ac' : 'ar', transB ? 'br' : 'bc'], c);
+}
+
+/** The serialized ModelProto of one operation. Inputs/outputs are named as in the builders above. */
+export function buildGraph(key: GraphKey): Uint8Array {
+  const g = new Graph();
+  builders[key](g);
+  return g.encode(`cairn_${key.replace(/:/g, '_')}`);
+}
+
+export const GRAPH_KEYS = Object.keys(builders) as GraphKey[];
