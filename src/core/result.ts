@@ -42,8 +42,8 @@ export interface SelectionResult {
     iterations: number;
     stopReason: string;
     swaps: number;
-    /** Which start the kept refinement came from: the descent's snapped items or greedy forward selection. */
-    refineStart: 'descent' | 'greedy';
+    /** Which start the kept refinement came from: the descent's snapped items, greedy forward selection, or the k-means++ seeds. */
+    refineStart: 'descent' | 'greedy' | 'seeds';
     weightSolver: { converged: boolean; gap: number; iterations: number } | null;
     loss: Array<[number, number]>;
     seconds: Record<string, number>;

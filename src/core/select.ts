@@ -83,13 +83,15 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
 
   progress('seed');
   let points: Float32Array;
+  let seedRows: Int32Array | null = null;
   if (ctx.initialPoints) {
     if (ctx.initialPoints.length !== o.k * d) {
       throw new CairnError('DIMENSION_MISMATCH', `initial points must be ${o.k}×${d}.`, { expected: o.k * d, got: ctx.initialPoints.length });
     }
     points = Float32Array.from(ctx.initialPoints);
   } else {
-    points = rows.gather(await seedKMeansPlusPlus(rows, o.k, backend, rng));
+    seedRows = await seedKMeansPlusPlus(rows, o.k, backend, rng);
+    points = rows.gather(seedRows);
   }
   const uniform = new Float64Array(o.k).fill(1 / o.k);
   const seededD2 = await exactD2(points, uniform);
@@ -180,15 +182,22 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
       rounds: o.refine ? 3 : 1,
     });
   const fromDescent = await refineFrom(Int32Array.from(snapped, (r) => slotOf.get(r)!), descentWeights);
-  // A second start that does not depend on the descent's basin: greedy forward selection over the
-  // same candidates. Swaps run from both; the lower D² wins (the choice is in trace.refineStart).
+  // Starts that do not depend on the descent's basin: greedy forward selection over the same
+  // candidates, and the seeds. Swaps run from each; the lowest D² wins (see trace.refineStart).
   let refined = fromDescent;
-  let refineStart: 'descent' | 'greedy' = 'descent';
+  let refineStart: RefineStart = 'descent';
   if (o.refine) {
-    const fromGreedy = await refineFrom(await greedyForward(backend, kernel, pool, poolRows.length, d, poolC, o.k), uniform);
-    if (fromGreedy.after < fromDescent.after) {
-      refined = fromGreedy;
-      refineStart = 'greedy';
+    const starts: Array<[RefineStart, Int32Array, Float64Array]> = [
+      ['greedy', await greedyForward(backend, kernel, pool, poolRows.length, d, poolC, o.k), uniform],
+    ];
+    // The k-means++ seeds are real items already: a third start at no extra cost.
+    if (seedRows && seedRows.every((r) => slotOf.has(r))) starts.push(['seeds', Int32Array.from(seedRows, (r) => slotOf.get(r)!), uniform]);
+    for (const [name, slots, weights] of starts) {
+      const result = await refineFrom(slots, weights);
+      if (result.after < refined.after) {
+        refined = result;
+        refineStart = name;
+      }
     }
   }
   const chosen = Int32Array.from(refined.slots, (u) => poolRows[u]);
@@ -286,6 +295,8 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
     },
   };
 }
+
+type RefineStart = SelectionResult['trace']['refineStart'];
 
 function median(values: number[]): number {
   const v = [...values].sort((a, b) => a - b);

@@ -1,3 +1,4 @@
+import { CairnError } from '../errors.js';
 import { createReadStream } from 'node:fs';
 import { open } from 'node:fs/promises';
 import { Transform, type Readable, type TransformCallback } from 'node:stream';
@@ -48,6 +49,11 @@ async function* walkTar(path: string, context: WalkContext): AsyncGenerator<Arch
       if (next.done) return;
       const stream = next.value;
       const header = stream.header;
+      // A size field tar-stream cannot parse (e.g. base-256 with the high bit set) comes back as
+      // null, and the extract then waits forever for data that never comes: fail instead.
+      if (header.size === null || header.size === undefined || !Number.isSafeInteger(header.size) || header.size < 0) {
+        throw new CairnError('ARCHIVE_CORRUPT', undefined, { reason: 'unreadable entry size' });
+      }
       // tar-stream gives null for type flags it does not know (sparse files, volume labels…).
       const type = header.type ?? 'unknown-type';
       const data = stream[Symbol.asyncIterator]() as AsyncIterator<Buffer>;

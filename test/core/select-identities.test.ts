@@ -121,7 +121,7 @@ describe('selection identities', () => {
   });
 
   it('stops on the time budget and reports it', async () => {
-    const r = await select(rows, { k: 10, seed: 1, maxIterations: 1_000_000, timeBudgetSeconds: 0.5 }, { backend });
+    const r = await select(rows, { k: 10, seed: 1, maxIterations: 1_000_000, timeBudgetSeconds: 0.5, plateauTolerance: 0 }, { backend });
     expect(r.trace.stopReason).toBe('time');
     checkIdentities(r, n);
   });

@@ -85,6 +85,9 @@ function fixTarChecksums(bytes: Buffer): Buffer {
   return out;
 }
 
+/** FC_SEED and FC_PATH (printed by fast-check on a failure) replay a failing case. */
+const replay = process.env.FC_SEED ? { seed: Number(process.env.FC_SEED), path: process.env.FC_PATH } : {};
+
 let caseNumber = 0;
 async function runCase(reader: DatasetReader, bytes: Buffer, onBadImage: 'skip' | 'fail', thumbnails: boolean): Promise<void> {
   const path = tmp.write(`case-${caseNumber++}`, bytes);
@@ -110,7 +113,7 @@ describe('archive readers on hostile bytes', () => {
   it(`zip: ${RUNS_PER_READER} truncated / mutated / random inputs`, async () => {
     await fc.assert(
       fc.asyncProperty(mutation, policy, fc.boolean(), (m, onBadImage, thumbs) => runCase(zipReader, mutate(seeds.zip, m), onBadImage, thumbs)),
-      { numRuns: RUNS_PER_READER, plugins: [fc.timeout(CASE_TIMEOUT_MS)] },
+      { numRuns: RUNS_PER_READER, plugins: [fc.timeout(CASE_TIMEOUT_MS)], ...replay },
     );
   });
 
@@ -130,7 +133,7 @@ describe('archive readers on hostile bytes', () => {
                 : fixTarChecksums(mutate(seeds.tar, m));
         return runCase(tarReader, bytes, onBadImage, thumbs);
       }),
-      { numRuns: RUNS_PER_READER, plugins: [fc.timeout(CASE_TIMEOUT_MS)] },
+      { numRuns: RUNS_PER_READER, plugins: [fc.timeout(CASE_TIMEOUT_MS)], ...replay },
     );
   });
 });
