@@ -181,13 +181,18 @@ describe('compute backend conformance', () => {
         expect(got.every((v) => v >= 0)).toBe(true);
       });
 
-      it.each(KERNELS)('kernelMatrix, kernelColumnSums, dataTerm: %o', async (kernel) => {
+      it.each(KERNELS)('kernelMatrix, kernelColumnSums, kernelSums, dataTerm: %o', async (kernel) => {
         const want = await kernelTruth(c, kernel);
         const h = await be.kernelMatrix(x, n, p, k, d, kernel);
         expect(h).toBeInstanceOf(Float64Array);
         expectClose('kernelMatrix', h, want.h, (i) => want.hTol[i]);
         const sums = await be.kernelColumnSums(x, n, p, k, d, kernel);
         expectClose('kernelColumnSums', sums, want.stats.hSum, (j) => want.hSumTol[j]);
+        const both = await be.kernelSums(x, n, p, k, d, kernel);
+        expectClose('kernelSums.colSums', both.colSums, want.stats.hSum, (j) => want.hSumTol[j]);
+        const rowWant = Array.from({ length: n }, (_, i) => want.h.slice(i * k, i * k + k).reduce((a, b) => a + b, 0));
+        const rowTol = (i: number) => want.hTol.slice(i * k, i * k + k).reduce((a, b) => a + b, 0);
+        expectClose('kernelSums.rowSums', both.rowSums, rowWant, rowTol);
         const stats = await be.dataTerm(x, n, p, k, d, kernel);
         expectClose('dataTerm.hSum', stats.hSum, want.stats.hSum, (j) => want.hSumTol[j]);
         expectClose('dataTerm.gSum', stats.gSum, want.stats.gSum, (j) => want.gSumTol[j]);

@@ -21,6 +21,13 @@ export interface ComputeBackend {
   kernelColumnSums(x: Float32Array, n: number, c: Float32Array, m: number, d: number, kernel: KernelSpec): Promise<Float64Array>;
 
   /**
+   * Both margins of the kernel block: rowSums[i] = Σ_j h(|x_i − c_j|) (n values) and
+   * colSums[j] = Σ_i h(|x_i − c_j|) (m values). One pass over a block serves both of its
+   * symmetric halves when summing h over all pairs of a dataset.
+   */
+  kernelSums(x: Float32Array, n: number, c: Float32Array, m: number, d: number, kernel: KernelSpec): Promise<KernelSums>;
+
+  /**
    * Minibatch statistics of the data term for each point j, with g(s) = h'(r)/r:
    *   hSum[j] = Σ_i h(|x_i − p_j|),  gSum[j] = Σ_i g_ij,  gx[j·d + t] = Σ_i g_ij x_it.
    * The gradient of Σ_i h(|x_i − p_j|) in p_j is then gSum[j]·p_j − gx[j,:].
@@ -38,6 +45,11 @@ export interface ComputeBackend {
 
   /** Releases native resources. The backend is unusable afterwards. */
   dispose(): Promise<void>;
+}
+
+export interface KernelSums {
+  rowSums: Float64Array;
+  colSums: Float64Array;
 }
 
 export interface DataTermStats {

@@ -1,7 +1,7 @@
 import os from 'node:os';
 import * as ort from 'onnxruntime-node';
 import { CairnError, requireArg } from '../errors.js';
-import type { Assignment, ComputeBackend, DataTermStats, NearestRows } from './backend.js';
+import type { Assignment, ComputeBackend, DataTermStats, NearestRows, KernelSums } from './backend.js';
 import type { KernelSpec } from './kernel-spec.js';
 import { buildGraph, GRAPH_KEYS, type GraphKey } from './onnx-graphs.js';
 import { ReferenceBackend } from './reference-backend.js';
@@ -21,7 +21,8 @@ export interface OnnxBackendOptions {
    * Most floats in one n×k intermediate per session.run; larger calls are split into row (or,
    * for nearestRows, point) blocks and the partial sums added in float64. ORT's arena keeps each
    * session's peak allocation for the session's lifetime, so this bounds resident memory at about
-   * five intermediates (dataTerm) × 4 bytes × blockElems per session. Default 2^22 (16 MB each).
+   * four intermediates (energy dataTerm) × 4 bytes × blockElems per session. Default 2^21 (8 MB
+   * each): at 8192×1000×256, 2^19…2^24 timed the same within noise, so memory decides.
    */
   blockElems?: number;
 }
@@ -58,7 +59,7 @@ export class OnnxBackend implements ComputeBackend {
   ) {}
 
   static async create(options: OnnxBackendOptions = {}): Promise<OnnxBackend> {
-    const { threads = os.availableParallelism(), minWork = 2e4, blockElems = 2 ** 22 } = options;
+    const { threads = os.availableParallelism(), minWork = 2e4, blockElems = 2 ** 21 } = options;
     requireArg(Number.isInteger(threads) && threads >= 1, 'threads', 'an integer ≥ 1', threads);
     requireArg(Number.isFinite(minWork) && minWork >= 0, 'minWork', 'a finite number ≥ 0', minWork);
     requireArg(Number.isInteger(blockElems) && blockElems >= 1, 'blockElems', 'an integer ≥ 1', blockElems);
@@ -91,6 +92,21 @@ export class OnnxBackend implements ComputeBackend {
       addInto(sums, out.hSum.data as Float32Array);
     }
     return sums;
+  }
+
+  async kernelSums(x: Float32Array, n: number, c: Float32Array, m: number, d: number, kernel: KernelSpec): Promise<KernelSums> {
+    checkPair(x, n, c, m, d);
+    checkKernel(kernel);
+    if (this.tiny(n * m * d)) return this.reference.kernelSums(x, n, c, m, d, kernel);
+    const colSums = new Float64Array(m);
+    const rowSums = new Float64Array(n);
+    const fixed = { p: f32(c, [m, d]), ...param(kernel) };
+    for (const [r0, r1] of this.blocks(n, m)) {
+      const out = await this.run(`kernelSums:${kernel.kind}`, { x: rowBlock(x, r0, r1, d), ...fixed });
+      addInto(colSums, out.hSum.data as Float32Array);
+      rowSums.set(out.rowSum.data as Float32Array, r0);
+    }
+    return { rowSums, colSums };
   }
 
   async dataTerm(x: Float32Array, n: number, p: Float32Array, k: number, d: number, kernel: KernelSpec): Promise<DataTermStats> {
@@ -178,7 +194,7 @@ export class OnnxBackend implements ComputeBackend {
           await this.run(key, { a: kind[0] === 't' ? zeros(d, n) : zeros(n, d), b: kind[1] === 't' ? zeros(k, d) : zeros(d, k) });
           continue;
         }
-        const rowBlocked = op === 'dataTerm' || op === 'assign' || op === 'kernelColumnSums';
+        const rowBlocked = op === 'dataTerm' || op === 'assign' || op === 'kernelColumnSums' || op === 'kernelSums';
         const feeds: Feeds = { x: zeros(rowBlocked ? Math.min(n, this.blockRows(k)) : n, d), p: zeros(k, d) };
         if (op === 'nearestRows') Object.assign(feeds, { p: zeros(Math.min(k, this.blockRows(n)), d), m: int64(Math.min(m, n)) });
         if (kind === 'energy') Object.assign(feeds, param({ kind, a: 1 }));

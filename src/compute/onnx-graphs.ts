@@ -23,6 +23,7 @@ export type GraphKey =
   | 'sqDistances'
   | `kernelMatrix:${KernelKind}`
   | `kernelColumnSums:${KernelKind}`
+  | `kernelSums:${KernelKind}`
   | `dataTerm:${KernelKind}`
   | 'assign'
   | `assign:${KernelKind}`
@@ -212,6 +213,8 @@ const builders: Record<GraphKey, (g: Graph) => void> = {
   'kernelMatrix:gaussian': (g) => kernelMatrix(g, 'gaussian'),
   'kernelColumnSums:energy': (g) => kernelColumnSums(g, 'energy'),
   'kernelColumnSums:gaussian': (g) => kernelColumnSums(g, 'gaussian'),
+  'kernelSums:energy': (g) => kernelSums(g, 'energy'),
+  'kernelSums:gaussian': (g) => kernelSums(g, 'gaussian'),
   'dataTerm:energy': (g) => dataTerm(g, 'energy'),
   'dataTerm:gaussian': (g) => dataTerm(g, 'gaussian'),
   assign: (g) => assign(g),
@@ -241,6 +244,13 @@ function kernelColumnSums(g: Graph, kind: KernelKind): void {
   const [x, p] = dataInputs(g);
   const block = kernelBlock(g, kind, x, p, kernelParam(g, kind), 'points');
   g.output('hSum', FLOAT, ['k'], hSum(g, block, 1));
+}
+
+function kernelSums(g: Graph, kind: KernelKind): void {
+  const [x, p] = dataInputs(g);
+  const block = kernelBlock(g, kind, x, p, kernelParam(g, kind), 'points');
+  g.output('hSum', FLOAT, ['k'], hSum(g, block, 1));
+  g.output('rowSum', FLOAT, ['n'], hSum(g, block, 0));
 }
 
 function dataTerm(g: Graph, kind: KernelKind): void {

@@ -1,4 +1,4 @@
-import type { Assignment, ComputeBackend, DataTermStats, NearestRows } from './backend.js';
+import type { Assignment, ComputeBackend, DataTermStats, KernelSums, NearestRows } from './backend.js';
 import { kernelG, kernelH, type KernelSpec } from './kernel-spec.js';
 
 /**
@@ -27,6 +27,19 @@ export class ReferenceBackend implements ComputeBackend {
       for (let j = 0; j < m; j++) out[j] += kernelH(kernel, sq(x, i, c, j, d));
     }
     return out;
+  }
+
+  async kernelSums(x: Float32Array, n: number, c: Float32Array, m: number, d: number, kernel: KernelSpec): Promise<KernelSums> {
+    const rowSums = new Float64Array(n);
+    const colSums = new Float64Array(m);
+    for (let i = 0; i < n; i++) {
+      for (let j = 0; j < m; j++) {
+        const h = kernelH(kernel, sq(x, i, c, j, d));
+        rowSums[i] += h;
+        colSums[j] += h;
+      }
+    }
+    return { rowSums, colSums };
   }
 
   async dataTerm(x: Float32Array, n: number, p: Float32Array, k: number, d: number, kernel: KernelSpec): Promise<DataTermStats> {

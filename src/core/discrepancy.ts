@@ -91,14 +91,17 @@ export async function constantTerm(
   const referenceIndex = exact ? range(0, n) : rng.sample(n, m);
   const reference: RowSource = exact ? rows : new DenseRows(rows.gather(referenceIndex), m, d);
   const blockRows = options.blockRows ?? 4096;
+  // h is symmetric, so each off-diagonal block (a, b) is computed once and gives the sums of
+  // rows a (its column margin) and of rows b (its row margin): half the work of all blocks.
   const rowSums = new Float64Array(m);
   for (let a = 0; a < m; a += blockRows) {
     const ca = Math.min(blockRows, m - a);
     const cBlock = reference.gather(range(a, ca));
-    for (let b = 0; b < m; b += blockRows) {
+    for (let b = a; b < m; b += blockRows) {
       const cb = Math.min(blockRows, m - b);
-      const sums = await backend.kernelColumnSums(reference.read(b, cb), cb, cBlock, ca, d, kernel);
-      for (let j = 0; j < ca; j++) rowSums[a + j] += sums[j];
+      const sums = await backend.kernelSums(reference.read(b, cb), cb, cBlock, ca, d, kernel);
+      for (let j = 0; j < ca; j++) rowSums[a + j] += sums.colSums[j];
+      if (b !== a) for (let i = 0; i < cb; i++) rowSums[b + i] += sums.rowSums[i];
     }
   }
   let total = 0;

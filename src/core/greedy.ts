@@ -1,4 +1,4 @@
-import type { ComputeBackend } from '../compute/backend.js';
+import type { KernelColumns } from './kernel-columns.js';
 import { kernelAtZero, type KernelSpec } from '../compute/kernel-spec.js';
 
 /**
@@ -9,15 +9,8 @@ import { kernelAtZero, type KernelSpec } from '../compute/kernel-spec.js';
  *   D²(S ∪ {u}) + const = (2/m)(Σ_S c + cᵤ) − (Σ_{S×S} K + 2 Σ_{j∈S} K(u, j) + h(0)) / m².
  * Returns positions in the pool. A second start for the swap refinement, independent of the descent.
  */
-export async function greedyForward(
-  backend: ComputeBackend,
-  kernel: KernelSpec,
-  pool: Float32Array,
-  poolSize: number,
-  d: number,
-  c: Float64Array,
-  k: number,
-): Promise<Int32Array> {
+export async function greedyForward(columns: KernelColumns, kernel: KernelSpec, c: Float64Array, k: number): Promise<Int32Array> {
+  const poolSize = columns.size;
   const h0 = kernelAtZero(kernel);
   const rowSum = new Float64Array(poolSize);
   const taken = new Uint8Array(poolSize);
@@ -40,7 +33,7 @@ export async function greedyForward(
     sumC += c[pick];
     sumK += 2 * rowSum[pick] + h0;
     if (m < k) {
-      const col = await backend.kernelMatrix(pool, poolSize, pool.subarray(pick * d, pick * d + d), 1, d, kernel);
+      const [col] = await columns.get([pick]);
       for (let u = 0; u < poolSize; u++) rowSum[u] += col[u];
     }
   }

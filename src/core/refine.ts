@@ -1,12 +1,10 @@
-import type { ComputeBackend } from '../compute/backend.js';
 import { kernelAtZero, type KernelSpec } from '../compute/kernel-spec.js';
+import type { KernelColumns } from './kernel-columns.js';
 import { solveWeights } from './weights.js';
 
 export interface RefineInput {
-  /** Candidate vectors (pool × d): the rows a representative may be swapped for. */
-  pool: Float32Array;
+  /** Number of candidates (the rows a representative may be swapped for). */
   poolSize: number;
-  d: number;
   /** c[u] = E_y h(|pool_u − y|). */
   c: Float64Array;
   /** Pool positions of the current representatives (k slots). */
@@ -38,17 +36,16 @@ export interface RefineResult {
  *   Δ = 2w_r (c_u − c_s) − 2w_r [B_u − w_r K(u, s) − B_s + w_r h(0)],
  * so every (slot, candidate) pair is scored in O(1) and the best swap is taken each step.
  */
-export async function refineBySwaps(backend: ComputeBackend, kernel: KernelSpec, input: RefineInput): Promise<RefineResult> {
-  const { pool, poolSize: P, d, c } = input;
+export async function refineBySwaps(columns: KernelColumns, kernel: KernelSpec, input: RefineInput): Promise<RefineResult> {
+  const { poolSize: P, c } = input;
   const k = input.slots.length;
   const slots = Int32Array.from(input.slots);
   let weights: Float64Array = Float64Array.from(input.weights);
   const h0 = kernelAtZero(kernel);
   // KPS[u·k + r] = K(pool_u, pool_{slots[r]}).
   const KPS = new Float64Array(P * k);
-  const reps = gatherRows(pool, slots, d);
-  const cols = await backend.kernelMatrix(pool, P, reps, k, d, kernel);
-  KPS.set(cols);
+  const initial = await columns.get(slots);
+  for (let r = 0; r < k; r++) for (let u = 0; u < P; u++) KPS[u * k + r] = initial[r][u];
   const inSet = new Int32Array(P).fill(-1);
   slots.forEach((u, r) => (inSet[u] = r));
 
@@ -91,7 +88,7 @@ export async function refineBySwaps(backend: ComputeBackend, kernel: KernelSpec,
       }
       if (bestR < 0) break;
       const old = slots[bestR];
-      const col = await backend.kernelMatrix(pool, P, pool.subarray(bestU * d, bestU * d + d), 1, d, kernel);
+      const [col] = await columns.get([bestU]);
       const wr = weights[bestR];
       for (let u = 0; u < P; u++) {
         Bu[u] += wr * (col[u] - KPS[u * k + bestR]);
@@ -113,10 +110,4 @@ export async function refineBySwaps(backend: ComputeBackend, kernel: KernelSpec,
     if (swapsThisRound === 0 && round > 0) break;
   }
   return { slots, weights, swaps, before, after: objective(), weightSolverConverged: converged };
-}
-
-export function gatherRows(data: Float32Array, idx: ArrayLike<number>, d: number): Float32Array {
-  const out = new Float32Array(idx.length * d);
-  for (let i = 0; i < idx.length; i++) out.set(data.subarray(idx[i] * d, idx[i] * d + d), i * d);
-  return out;
 }

@@ -5,7 +5,7 @@ import type { RowSource } from './rows.js';
 /**
  * k-means++ seeding (Arthur & Vassilvitskii, SODA 2007): the first point uniformly, each next one
  * with probability proportional to the squared distance to the nearest point chosen so far (D²
- * sampling), on a random sample of rows. Returns row indices into `rows` (distinct rows; when the
+ * sampling), on a random sample of rows (by default 16 per seed, at least 4,096). Returns row indices into `rows` (distinct rows; when the
  * sample has fewer than k distinct rows, duplicates of chosen rows are taken last).
  */
 export async function seedKMeansPlusPlus(
@@ -13,10 +13,12 @@ export async function seedKMeansPlusPlus(
   k: number,
   backend: ComputeBackend,
   rng: Rng,
-  sampleRows = 20_000,
+  sampleRows?: number,
 ): Promise<Int32Array> {
   const n = rows.rows;
-  const m = Math.min(n, Math.max(sampleRows, k));
+  // 16 rows per seed (at least 4,096): each seed costs one pass over the sample, and the seeds
+  // only start the descent, whose result the swap refinement then improves over every row.
+  const m = Math.min(n, Math.max(sampleRows ?? Math.max(4096, 16 * k), k));
   const sampleIdx = m === n ? rng.shuffle(Int32Array.from({ length: n }, (_, i) => i)) : rng.sample(n, m);
   const sample = rows.gather(sampleIdx);
   const d = rows.cols;

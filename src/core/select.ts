@@ -8,6 +8,7 @@ import { autoIterations, parseSelectOptions, type SelectOptionsInput } from './o
 import { greedyPrefixOrder, prefixCurve } from './ordering.js';
 import { Rng } from './random.js';
 import { greedyForward } from './greedy.js';
+import { KernelColumns } from './kernel-columns.js';
 import { refineBySwaps } from './refine.js';
 import type { SelectionResult, SelectProgress } from './result.js';
 import { DenseRows, type RowSource } from './rows.js';
@@ -169,11 +170,10 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   const pool = rows.gather(poolRows);
   const poolC = Float64Array.from(poolCValues);
   const slotOf = new Map(poolRows.map((r, i) => [r, i]));
+  const columns = new KernelColumns(backend, kernel, pool, poolRows.length, d);
   const refineFrom = (slots: Int32Array, weights: Float64Array) =>
-    refineBySwaps(backend, kernel, {
-      pool,
+    refineBySwaps(columns, kernel, {
       poolSize: poolRows.length,
-      d,
       c: poolC,
       slots,
       weights,
@@ -188,7 +188,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   let refineStart: RefineStart = 'descent';
   if (o.refine) {
     const starts: Array<[RefineStart, Int32Array, Float64Array]> = [
-      ['greedy', await greedyForward(backend, kernel, pool, poolRows.length, d, poolC, o.k), uniform],
+      ['greedy', await greedyForward(columns, kernel, poolC, o.k), uniform],
     ];
     // The k-means++ seeds are real items already: a third start at no extra cost.
     if (seedRows && seedRows.every((r) => slotOf.has(r))) starts.push(['seeds', Int32Array.from(seedRows, (r) => slotOf.get(r)!), uniform]);

@@ -1,0 +1,38 @@
+import type { ComputeBackend } from '../compute/backend.js';
+import type { KernelSpec } from '../compute/kernel-spec.js';
+
+/** Cached columns hold at most this many values in all (160 MB of float64). */
+const MAX_CACHED_VALUES = 2e7;
+
+/**
+ * Columns K(pool, u) = [h(|pool_v − pool_u|)]_v of the candidates' kernel matrix, computed on
+ * demand (several at once in one kernel call) and cached: the greedy start and the swap searches
+ * from every start ask for many of the same columns.
+ */
+export class KernelColumns {
+  private readonly cache = new Map<number, Float64Array>();
+
+  constructor(
+    private readonly backend: ComputeBackend,
+    private readonly kernel: KernelSpec,
+    readonly pool: Float32Array,
+    readonly size: number,
+    readonly d: number,
+  ) {}
+
+  async get(items: ArrayLike<number>): Promise<Float64Array[]> {
+    const missing = Array.from(new Set(Array.from(items))).filter((u) => !this.cache.has(u));
+    if (missing.length) {
+      if ((this.cache.size + missing.length) * this.size > MAX_CACHED_VALUES) this.cache.clear();
+      const points = new Float32Array(missing.length * this.d);
+      missing.forEach((u, j) => points.set(this.pool.subarray(u * this.d, (u + 1) * this.d), j * this.d));
+      const block = await this.backend.kernelMatrix(this.pool, this.size, points, missing.length, this.d, this.kernel);
+      missing.forEach((u, j) => {
+        const col = new Float64Array(this.size);
+        for (let v = 0; v < this.size; v++) col[v] = block[v * missing.length + j];
+        this.cache.set(u, col);
+      });
+    }
+    return Array.from(items, (u) => this.cache.get(u)!);
+  }
+}
