@@ -8,7 +8,7 @@
 export const ERROR_CATALOGUE = {
   // --- arguments and options ---
   INVALID_ARGUMENT: { status: 400, message: 'An argument is outside its allowed range.' },
-  K_TOO_LARGE: { status: 422, message: 'k is larger than the number of distinct items in the dataset.' },
+  K_TOO_LARGE: { status: 422, message: 'k is larger than the number of items in the dataset.' },
   DIMENSION_MISMATCH: { status: 422, message: 'Arrays passed together do not have matching dimensions.' },
   SELECTION_CANCELLED: { status: 409, message: 'The selection was cancelled.' },
   // --- datasets (readers) ---

@@ -41,6 +41,8 @@ export interface SelectionResult {
   trace: {
     iterations: number;
     stopReason: string;
+    /** True when most sampled pairs were duplicates, so the median distance was 0 and a fallback scale was used. */
+    scaleDegenerate: boolean;
     swaps: number;
     /** Which start the kept refinement came from: the descent's snapped items, greedy forward selection, or the k-means++ seeds. */
     refineStart: 'descent' | 'greedy' | 'seeds';

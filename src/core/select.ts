@@ -74,9 +74,9 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   endPhase('scale');
   checkAbort();
 
-  // A sample of rows for scoring candidates and random baselines (all rows when small).
+  // Rows for the stage values, the weight solves and the random baselines (all rows when small).
   const scoring = n <= o.refineSampleRows ? rows : new DenseRows(rows.gather(rng.sample(n, o.refineSampleRows)), o.refineSampleRows, d);
-  const exactD2 = async (points: Float32Array, w: Float64Array): Promise<number> => {
+  const stageD2 = async (points: Float32Array, w: Float64Array): Promise<number> => {
     const c = await dataTermMeans(scoring, backend, kernel, points, o.k);
     const { K } = await selfTerm(backend, kernel, points, w, o.k, d);
     return discrepancyFromTerms(c, K, w, constant.value);
@@ -95,7 +95,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
     points = rows.gather(seedRows);
   }
   const uniform = new Float64Array(o.k).fill(1 / o.k);
-  const seededD2 = await exactD2(points, uniform);
+  const seededD2 = await stageD2(points, uniform);
   endPhase('seed');
   checkAbort();
 
@@ -135,7 +135,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   );
   checkAbort();
   const descentWeights = o.weights === 'optimized' ? state.weights : uniform;
-  const descentD2 = await exactD2(state.points, descentWeights);
+  const descentD2 = await stageD2(state.points, descentWeights);
   endPhase('descent');
 
   progress('snap');
@@ -286,6 +286,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
     trace: {
       iterations: state.iteration,
       stopReason: descent.stopReason,
+      scaleDegenerate: scale.degenerate,
       swaps: refined.swaps,
       refineStart,
       weightSolver,
