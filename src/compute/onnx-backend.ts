@@ -11,10 +11,12 @@ export interface OnnxBackendOptions {
   threads?: number;
   /**
    * Calls whose work (rows × points × dims) is below this run on the ReferenceBackend instead.
-   * A session.run has ≈ 45–60 µs of fixed cost here (feeds, shape inference, output copies, the
-   * setImmediate hop); plain JS needs about that for 2e4 multiply-adds (measured on dataTerm and
-   * assign: break-even near n·k·d = 1.6e4, ONNX 4–9× ahead at 1e5). Default 2e4. 0 sends every
-   * non-empty call to ONNX (the conformance test).
+   * A session.run has ≈ 30–50 µs of fixed cost (feeds, shape inference, output copies, the
+   * setImmediate hop, waking the pool), which plain JS matches at n·k·d ≈ 2e4 (measured on
+   * assign; dataTerm breaks even lower). The default 1e5 keeps calls up to ~0.3 ms on the
+   * reference on purpose: that costs at most ~0.5 ms a call and buys float64 without the
+   * |x|²+|p|²−2x·p cancellation on the small blocks (quadratic forms) where it matters most.
+   * 0 sends every non-empty call to ONNX (the conformance test).
    */
   minWork?: number;
   /**
@@ -27,13 +29,8 @@ export interface OnnxBackendOptions {
   blockElems?: number;
 }
 
-export interface WarmUpShape {
-  n: number;
-  k: number;
-  d: number;
-  /** nearestRows' m; default min(n, 8). */
-  m?: number;
-}
+/** A call shape to warm up for; m is nearestRows' m (default min(n, 8)). */
+export type WarmUpShape = { n: number; k: number; d: number; m?: number };
 
 type Feeds = Record<string, ort.Tensor>;
 
@@ -52,14 +49,10 @@ export class OnnxBackend implements ComputeBackend {
   private readonly sessions = new Map<GraphKey, Promise<ort.InferenceSession>>();
   private disposed = false;
 
-  private constructor(
-    readonly threads: number,
-    readonly minWork: number,
-    readonly blockElems: number,
-  ) {}
+  private constructor(readonly threads: number, readonly minWork: number, readonly blockElems: number) {}
 
   static async create(options: OnnxBackendOptions = {}): Promise<OnnxBackend> {
-    const { threads = os.availableParallelism(), minWork = 2e4, blockElems = 2 ** 21 } = options;
+    const { threads = os.availableParallelism(), minWork = 1e5, blockElems = 2 ** 21 } = options;
     requireArg(Number.isInteger(threads) && threads >= 1, 'threads', 'an integer ≥ 1', threads);
     requireArg(Number.isFinite(minWork) && minWork >= 0, 'minWork', 'a finite number ≥ 0', minWork);
     requireArg(Number.isInteger(blockElems) && blockElems >= 1, 'blockElems', 'an integer ≥ 1', blockElems);
@@ -114,8 +107,7 @@ export class OnnxBackend implements ComputeBackend {
     checkKernel(kernel);
     if (this.tiny(n * k * d)) return this.reference.dataTerm(x, n, p, k, d, kernel);
     const [hSum, gSum] = [new Float64Array(k), new Float64Array(k)];
-    let gx: Float32Array | null = null;
-    let gx64: Float64Array | null = null;
+    let [gx, gx64]: [Float32Array | null, Float64Array | null] = [null, null];
     const fixed = { p: f32(p, [k, d]), ...param(kernel) };
     for (const [r0, r1] of this.blocks(n, k)) {
       const out = await this.run(`dataTerm:${kernel.kind}`, { x: rowBlock(x, r0, r1, d), ...fixed });
@@ -164,12 +156,8 @@ export class OnnxBackend implements ComputeBackend {
 
   async gemm(a: Float32Array, aRows: number, aCols: number, b: Float32Array, bRows: number, bCols: number, transA: boolean, transB: boolean): Promise<Float32Array> {
     for (const [name, v] of Object.entries({ aRows, aCols, bRows, bCols })) checkDim(name, v);
-    const rows = transA ? aCols : aRows;
-    const inner = transA ? aRows : aCols;
-    const cols = transB ? bRows : bCols;
-    if ((transB ? bCols : bRows) !== inner) {
-      throw new CairnError('DIMENSION_MISMATCH', `gemm: inner dimensions differ (${inner} vs ${transB ? bCols : bRows}).`);
-    }
+    const [rows, inner, cols, innerB] = [transA ? aCols : aRows, transA ? aRows : aCols, transB ? bRows : bCols, transB ? bCols : bRows];
+    if (innerB !== inner) throw new CairnError('DIMENSION_MISMATCH', `gemm: inner dimensions differ (${inner} vs ${innerB}).`);
     checkLength('a', a, aRows * aCols);
     checkLength('b', b, bRows * bCols);
     if (this.tiny(rows * inner * cols)) return this.reference.gemm(a, aRows, aCols, b, bRows, bCols, transA, transB);
@@ -235,6 +223,10 @@ export class OnnxBackend implements ComputeBackend {
         interOpNumThreads: 1,
         graphOptimizationLevel: 'all',
         executionMode: 'sequential',
+        // Memory patterns are cached per input shape; ours change with every block and batch, so
+        // the cache would only grow (and it made the second run as slow as the first). The arena
+        // still recycles buffers.
+        enableMemPattern: false,
         // Every session has its own intra-op pool; spinning workers of the previous call's session
         // would steal cores from the next one (measured 2–3× slower when alternating graphs).
         extra: { session: { intra_op: { allow_spinning: '0' } } },
@@ -251,8 +243,8 @@ export class OnnxBackend implements ComputeBackend {
     try {
       return await (await this.session(key)).run(feeds);
     } catch (cause) {
-      const message = cause instanceof Error ? cause.message : String(cause);
-      throw new CairnError('COMPUTE_BACKEND_FAILED', `ONNX graph ${key} failed: ${message}`, { graph: key }, { cause });
+      const message = `ONNX graph ${key} failed: ${cause instanceof Error ? cause.message : String(cause)}`;
+      throw new CairnError('COMPUTE_BACKEND_FAILED', message, { graph: key }, { cause });
     }
   }
 }
@@ -285,9 +277,7 @@ function param(kernel: KernelSpec): Feeds {
   return { sigma: new ort.Tensor('float32', Float32Array.of(kernel.sigma), []) };
 }
 
-function checkDim(name: string, v: number): void {
-  requireArg(Number.isInteger(v) && v >= 0, name, 'an integer ≥ 0', v);
-}
+const checkDim = (name: string, v: number) => requireArg(Number.isInteger(v) && v >= 0, name, 'an integer ≥ 0', v);
 
 function checkLength(name: string, arr: Float32Array, needed: number): void {
   // Longer arrays are accepted (a reused block buffer with a short last block); the prefix is used.
@@ -297,9 +287,7 @@ function checkLength(name: string, arr: Float32Array, needed: number): void {
 }
 
 function checkPair(x: Float32Array, n: number, p: Float32Array, k: number, d: number): void {
-  checkDim('n', n);
-  checkDim('k', k);
-  checkDim('d', d);
+  for (const [name, v] of Object.entries({ n, k, d })) checkDim(name, v);
   checkLength('x', x, n * d);
   checkLength('p', p, k * d);
 }
