@@ -173,12 +173,13 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
     state.iteration++;
     state.elapsedMs = now() - started;
 
-    // Weights join the descent only for its second half: moved early, they freeze the structure
-    // (a point with a small weight gets a small gradient and stays where it was seeded).
+    // Weights join the descent only late (from weightsFrom of the budget): moved early, they freeze
+    // the structure (a point with a small weight gets a small gradient and stays where it was seeded).
     if (o.optimizeWeights && k > 1 && fraction >= o.weightsFrom && state.iteration % o.weightEvery === 0) {
       // c from the (larger) weight sample rather than the minibatch: noisy c gives noisy weights.
       const cw = ctx.weightRows ? await dataTermMeans(ctx.weightRows, backend, kernel, state.points, k) : state.cEma;
-      state.weights = solveWeights(cw, self.K, { start: state.weights, maxIterations: 500, tol: 1e-6 }).weights;
+      const { K } = await selfTerm(backend, kernel, state.points, state.weights, k, d);
+      state.weights = solveWeights(cw, K, { start: state.weights, maxIterations: 500, tol: 1e-6 }).weights;
     }
     if (state.iteration % traceEvery === 0) trace.push([state.iteration, state.lossEma]);
     ctx.onProgress?.({ iteration: state.iteration, maxIterations: o.maxIterations, loss: state.lossEma, elapsedMs: state.elapsedMs, fraction });
