@@ -5,6 +5,7 @@ import { kernelG, kernelH, type KernelSpec } from '../src/compute/kernel-spec.js
 import { OnnxBackend } from '../src/compute/onnx-backend.js';
 import { ReferenceBackend, sqDistancesSync } from '../src/compute/reference-backend.js';
 import { CairnError } from '../src/errors.js';
+import { prng as mulberry32 } from './data/fixtures.js';
 
 /*
  * Every backend against the float64 reference, on seeded random shapes. Backends compute in
@@ -18,17 +19,6 @@ import { CairnError } from '../src/errors.js';
  */
 const EPS32 = 2 ** -23;
 const REL_SUM = 1e-4;
-
-function mulberry32(seed: number): () => number {
-  let a = seed >>> 0;
-  return () => {
-    a = (a + 0x6d2b79f5) >>> 0;
-    let t = a;
-    t = Math.imul(t ^ (t >>> 15), t | 1);
-    t ^= t + Math.imul(t ^ (t >>> 7), t | 61);
-    return ((t ^ (t >>> 14)) >>> 0) / 4294967296;
-  };
-}
 
 interface Case {
   name: string;
