@@ -27,16 +27,20 @@ describe('seeded generator', () => {
     let s2 = 0;
     let z = 0;
     let z2 = 0;
+    let lo = Infinity;
+    let hi = -Infinity;
     for (let i = 0; i < n; i++) {
       const u = rng.next();
-      expect(u).toBeGreaterThanOrEqual(0);
-      expect(u).toBeLessThan(1);
+      lo = Math.min(lo, u);
+      hi = Math.max(hi, u);
       s += u;
       s2 += u * u;
       const g = rng.normal();
       z += g;
       z2 += g * g;
     }
+    expect(lo).toBeGreaterThanOrEqual(0);
+    expect(hi).toBeLessThan(1);
     expect(Math.abs(s / n - 0.5)).toBeLessThan(5 * Math.sqrt(1 / 12 / n));
     expect(Math.abs(s2 / n - s * s / n / n - 1 / 12)).toBeLessThan(5 * Math.sqrt(1 / 180 / n));
     expect(Math.abs(z / n)).toBeLessThan(5 / Math.sqrt(n));
