@@ -1,5 +1,6 @@
 import { Command, InvalidArgumentError, Option } from 'commander';
 import { selectOptionsSchema } from '../core/options.js';
+import { DEFAULT_IMAGE_OPTIONS } from '../data/read-options.js';
 import { runSelectCommand } from './select-command.js';
 
 const shape = selectOptionsSchema.shape;
@@ -42,8 +43,8 @@ export function buildProgram(): Command {
     .option('--label-field <name>', 'column/field holding labels, used for coverage statistics only; default "label" when present')
     .option('--vector-field <name>', 'JSON Lines / Parquet field holding the vector; default "vector"')
     .addOption(new Option('--non-finite <policy>', 'rows with NaN/Infinity: fail (default) or drop and count').choices(['fail', 'drop']))
-    .option('--image-size <px>', 'image archives: side of the square images are resized to; default 32', integer)
-    .addOption(new Option('--image-color <mode>', 'image archives: gray or rgb; default gray').choices(['gray', 'rgb']))
+    .option('--image-size <px>', `image archives: side of the square images are resized to; default ${DEFAULT_IMAGE_OPTIONS.size}`, integer)
+    .addOption(new Option('--image-color <mode>', `image archives: gray or rgb; default ${DEFAULT_IMAGE_OPTIONS.color}`).choices(['gray', 'rgb']))
     .addOption(new Option('--backend <kind>', 'compute backend').choices(['onnx', 'reference']).default('onnx'))
     .option('--quiet', 'no progress bar on stderr')
     .action(async (file: string, flags: Record<string, unknown>) => {
