@@ -49,6 +49,11 @@ export interface ConstantTerm {
   /** True when computed over all pairs; false when estimated from a row sample. */
   exact: boolean;
   sampleRows: number;
+  /**
+   * Standard error of `value` (0 when exact). D² and its ratio to random inherit it, since every
+   * other term is computed over all rows: a user should read D² as value ± this.
+   */
+  standardError: number;
 }
 
 export interface ConstantTermWithRows extends ConstantTerm {
@@ -107,10 +112,16 @@ export async function constantTerm(
   let total = 0;
   for (const v of rowSums) total += v;
   const rowMeans = Float64Array.from(rowSums, (v) => v / m);
-  if (exact) return { value: total / (n * n), exact, sampleRows: n, reference, referenceIndex, rowMeans };
+  if (exact) return { value: total / (n * n), exact, sampleRows: n, standardError: 0, reference, referenceIndex, rowMeans };
   const h0 = kernelAtZero(kernel);
   const u = (total - m * h0) / (m * (m - 1));
-  return { value: ((n - 1) * u + h0) / n, exact, sampleRows: m, reference, referenceIndex, rowMeans };
+  // Var U ≈ 4σ₁²/m with σ₁² the variance of the row means (Hoeffding 1948, first-order term).
+  let mean = 0;
+  for (const v of rowMeans) mean += v / m;
+  let variance = 0;
+  for (const v of rowMeans) variance += (v - mean) ** 2 / (m - 1);
+  const standardError = 2 * Math.sqrt(variance / m);
+  return { value: ((n - 1) * u + h0) / n, exact, sampleRows: m, standardError, reference, referenceIndex, rowMeans };
 }
 
 /** cᵢ = E_y h(|pᵢ − y|) over all rows, streamed in blocks. */

@@ -28,8 +28,8 @@ export interface SelectionResult {
   discrepancy: {
     /** D² of the representatives with their weights. */
     value: number;
-    /** E h(|Y − Y'|) of the data; exact or estimated from a sample. */
-    constant: { value: number; exact: boolean; sampleRows: number };
+    /** E h(|Y − Y'|) of the data; exact, or estimated from a sample with its standard error (D² inherits it). */
+    constant: { value: number; exact: boolean; sampleRows: number; standardError: number };
     random: { median: number; draws: number[] };
     /** value / random.median: below 1 is better than picking k items at random. */
     ratioToRandom: number;

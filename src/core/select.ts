@@ -277,7 +277,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
     },
     discrepancy: {
       value: finalD2,
-      constant: { value: constant.value, exact: constant.exact, sampleRows: constant.sampleRows },
+      constant: { value: constant.value, exact: constant.exact, sampleRows: constant.sampleRows, standardError: constant.standardError },
       random: { median: randomMedian, draws: randomFinal },
       ratioToRandom: randomMedian > 0 ? finalD2 / randomMedian : NaN,
       prefix: curve.map((value, m) => ({ m: m + 1, value, random: median(draws.map((dr) => dr[m])) })),
