@@ -68,7 +68,7 @@ export interface ConstantTermWithRows extends ConstantTerm {
 export interface ConstantTermOptions {
   /** Compute over all N² pairs up to this many rows. Default 20,000. */
   exactMaxRows?: number;
-  /** Otherwise estimate from this many sampled rows. Default 8,192. */
+  /** Otherwise estimate from this many sampled rows. Default: about 1e11 flops' worth, √(1e11/d), within 8,192..50,000. */
   sampleRows?: number;
   /** Rows per kernel call. Default 4,096. */
   blockRows?: number;
@@ -92,7 +92,7 @@ export async function constantTerm(
   const n = rows.rows;
   const d = rows.cols;
   const exact = n <= (options.exactMaxRows ?? 20_000);
-  const m = exact ? n : Math.min(options.sampleRows ?? 8192, n);
+  const m = exact ? n : Math.min(options.sampleRows ?? defaultSampleRows(d), n);
   const referenceIndex = exact ? range(0, n) : rng.sample(n, m);
   const reference: RowSource = exact ? rows : new DenseRows(rows.gather(referenceIndex), m, d);
   const blockRows = options.blockRows ?? 4096;
@@ -122,6 +122,14 @@ export async function constantTerm(
   for (const v of rowMeans) variance += (v - mean) ** 2 / (m - 1);
   const standardError = 2 * Math.sqrt(variance / m);
   return { value: ((n - 1) * u + h0) / n, exact, sampleRows: m, standardError, reference, referenceIndex, rowMeans };
+}
+
+/**
+ * The sample's m²·d/2 kernel work is held near 1e11 flops (under a second here): the standard
+ * error falls as 1/√m, so narrow data gets a larger sample for the same time.
+ */
+function defaultSampleRows(d: number): number {
+  return Math.min(50_000, Math.max(8192, Math.round(Math.sqrt(1e11 / d))));
 }
 
 /** cᵢ = E_y h(|pᵢ − y|) over all rows, streamed in blocks. */
