@@ -20,24 +20,38 @@ export function parseSpace(text: string): SpaceSpec {
   throw new RangeError(`space must be raw, standardize or pca:M with M ≥ 1 (got ${JSON.stringify(text)})`);
 }
 
-/** Column means and standard deviations in one streamed pass (Welford's update per block, in float64). */
+/**
+ * Column means and standard deviations in one streamed pass: two passes over each block (its mean,
+ * then squared deviations from it, both in float64), merged across blocks with the pairwise update
+ * of Chan, Golub & LeVeque (1979) — stable without a division per value.
+ */
 export function columnMoments(rows: RowSource, blockRows = 16_384): { mean: Float64Array; std: Float64Array } {
   const d = rows.cols;
   const mean = new Float64Array(d);
   const m2 = new Float64Array(d);
+  const blockMean = new Float64Array(d);
+  const blockM2 = new Float64Array(d);
   let count = 0;
   for (let start = 0; start < rows.rows; start += blockRows) {
     const c = Math.min(blockRows, rows.rows - start);
     const block = rows.read(start, c);
+    blockMean.fill(0);
+    blockM2.fill(0);
+    for (let i = 0; i < c; i++) for (let t = 0; t < d; t++) blockMean[t] += block[i * d + t];
+    for (let t = 0; t < d; t++) blockMean[t] /= c;
     for (let i = 0; i < c; i++) {
-      count++;
       for (let t = 0; t < d; t++) {
-        const x = block[i * d + t];
-        const delta = x - mean[t];
-        mean[t] += delta / count;
-        m2[t] += delta * (x - mean[t]);
+        const delta = block[i * d + t] - blockMean[t];
+        blockM2[t] += delta * delta;
       }
     }
+    const total = count + c;
+    for (let t = 0; t < d; t++) {
+      const delta = blockMean[t] - mean[t];
+      mean[t] += (delta * c) / total;
+      m2[t] += blockM2[t] + (delta * delta * count * c) / total;
+    }
+    count = total;
   }
   const std = Float64Array.from(m2, (v) => Math.sqrt(v / Math.max(count, 1)));
   return { mean, std };
