@@ -120,6 +120,15 @@ describe('selection identities', () => {
     expect(ratios.reduce((a, b) => a + b, 0)).toBeLessThanOrEqual(1 + 1e-6);
   });
 
+  it('above exactConstantMaxRows the self term is sampled, its standard error reported, and the rest holds', async () => {
+    const big = blobs(30_000, 7);
+    const r = await select(big, { k: 12, seed: 5, maxIterations: 200, exactConstantMaxRows: 20_000 }, { backend });
+    expect(r.discrepancy.constant.exact).toBe(false);
+    expect(r.discrepancy.constant.standardError).toBeGreaterThan(0);
+    checkIdentities(r, 30_000);
+    expect(r.discrepancy.ratioToRandom).toBeLessThan(0.5);
+  });
+
   it('stops on the time budget and reports it', async () => {
     const r = await select(rows, { k: 10, seed: 1, maxIterations: 1_000_000, timeBudgetSeconds: 0.5, plateauTolerance: 0 }, { backend });
     expect(r.trace.stopReason).toBe('time');
