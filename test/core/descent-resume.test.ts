@@ -1,0 +1,66 @@
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import type { ComputeBackend } from '../../src/compute/backend.js';
+import { initialDescentState, runDescent, type DescentOptions, type DescentState } from '../../src/core/descent.js';
+import { Rng } from '../../src/core/random.js';
+import { DenseRows } from '../../src/core/rows.js';
+import { defaultBackend } from '../helpers/backends.js';
+
+let backend: ComputeBackend;
+beforeAll(async () => {
+  backend = await defaultBackend();
+});
+afterAll(async () => backend.dispose());
+
+/** A deep copy, as a checkpoint written to disk and read back would be. */
+function checkpoint(state: DescentState): DescentState {
+  return {
+    ...state,
+    points: Float32Array.from(state.points),
+    weights: Float64Array.from(state.weights),
+    optimizer: { ...state.optimizer, m: Float64Array.from(state.optimizer.m), v: Float64Array.from(state.optimizer.v) },
+    cEma: state.cEma ? Float64Array.from(state.cEma) : null,
+    shuffleState: [...state.shuffleState],
+  };
+}
+
+describe('descent checkpoints', () => {
+  const rng = new Rng(3);
+  const n = 5000;
+  const d = 5;
+  const rows = new DenseRows(Float32Array.from({ length: n * d }, () => rng.normal()), n, d);
+  const options = (maxIterations: number): DescentOptions => ({
+    optimizer: 'adam',
+    batchSize: 512,
+    maxIterations,
+    timeBudgetMs: null,
+    learningRate: 0.05,
+    finalLearningRateFraction: 0.01,
+    plateauTolerance: 0,
+    plateauWindow: 100,
+    weightEvery: 25,
+    optimizeWeights: true,
+    weightsFrom: 0.7,
+  });
+  const context = (r: Rng) => ({ rows, backend, kernel: { kind: 'energy' as const, a: 0.03 }, rng: r, scale: 3, constant: 0, now: () => 0 });
+
+  it('a descent stopped and resumed from a saved state and generator ends where an uninterrupted one does', async () => {
+    const seedPoints = rows.gather([1, 2, 3, 4, 5, 6]);
+    const straightRng = new Rng(9);
+    const straight = await runDescent(context(straightRng), initialDescentState(Float32Array.from(seedPoints), 6, 'adam', straightRng), options(120));
+
+    const firstRng = new Rng(9);
+    const first = initialDescentState(Float32Array.from(seedPoints), 6, 'adam', firstRng);
+    // Stop after 50 iterations, as a cancelled or killed worker would have checkpointed.
+    let calls = 0;
+    await runDescent({ ...context(firstRng), shouldStop: () => ++calls >= 50 }, first, options(120));
+    expect(first.iteration).toBe(50);
+    const saved = checkpoint(first);
+    const savedRng = firstRng.state();
+
+    const resumedRng = Rng.fromState(savedRng);
+    const resumed = await runDescent(context(resumedRng), saved, options(120));
+    expect(resumed.state.iteration).toBe(120);
+    expect(Array.from(resumed.state.points)).toEqual(Array.from(straight.state.points));
+    expect(Array.from(resumed.state.weights)).toEqual(Array.from(straight.state.weights));
+  });
+});
