@@ -23,7 +23,7 @@ export const selectOptionsSchema = z.object({
   snapCandidates: z.number().int().min(1).max(1000).default(16).describe('Nearest real items considered per point when snapping and refining. Default 16.'),
   refine: z.boolean().default(true).describe('Swap representatives for candidate items while D² drops. Default true.'),
   refinePoolEntries: z.number().int().min(1000).max(1e9).default(5e7).describe('Cap on swap candidates × k (the size of the kernel table the refinement keeps). Candidates are every row up to exactConstantMaxRows (else the constant term\'s row sample) plus each point\'s nearest items. Default 50,000,000.'),
-  refineSampleRows: z.number().int().min(100).default(50_000).describe('Rows used to score swap candidates (all rows when fewer). Default 50,000.'),
+  refineSampleRows: z.number().int().min(100).default(50_000).describe('Rows (a sample when the dataset is larger) for the weight solves during the descent, the stage values in the trace and the random baseline. Default 50,000.'),
   randomDraws: z.number().int().min(1).max(101).default(7).describe('Random k-subsets drawn for the "vs random" baseline (their median is used). Default 7.'),
   worstCount: z.number().int().min(0).max(10_000).default(20).describe('How many worst-covered items to list. Default 20.'),
   radius: z.number().positive().nullable().default(null).describe('Coverage radius in the selection space; the covered fraction is also reported at 0.25, 0.5, 0.75 and 1 × s. Default null.'),
