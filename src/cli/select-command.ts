@@ -112,7 +112,7 @@ export function summary(r: CliResult, outFile: string): string {
   }
   if (r.k > 20) lines.push(`  … ${r.k - 20} more in ${outFile}`);
   const d = r.discrepancy;
-  lines.push(`D² = ${d.value.toPrecision(4)}; random k-subsets: ${d.random.median.toPrecision(4)} (ratio ${d.ratioToRandom.toFixed(3)})`);
+  lines.push(`D² = ${d.value.toPrecision(4)}; random k-subsets: ${d.random.median.toPrecision(4)} (ratio ${d.ratioToRandom === null ? 'n/a' : d.ratioToRandom.toFixed(3)})`);
   lines.push(`result written to ${outFile}`);
   return lines.join('\n') + '\n';
 }

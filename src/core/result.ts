@@ -31,8 +31,8 @@ export interface SelectionResult {
     /** E h(|Y − Y'|) of the data; exact, or estimated from a sample with its standard error (D² inherits it). */
     constant: { value: number; exact: boolean; sampleRows: number; standardError: number };
     random: { median: number; draws: number[] };
-    /** value / random.median: below 1 is better than picking k items at random. */
-    ratioToRandom: number;
+    /** value / random.median: below 1 is better than picking k items at random; null when random.median is 0. */
+    ratioToRandom: number | null;
     /** D² of the first m representatives with uniform weights, m = 1..k, and the median over random draws. */
     prefix: Array<{ m: number; value: number; random: number }>;
     /** D² after each stage (uniform or descent weights until the final solve). */

@@ -276,12 +276,19 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
       labels: cov.labels,
     },
     discrepancy: {
-      value: finalD2,
+      value: nonNegative(finalD2),
       constant: { value: constant.value, exact: constant.exact, sampleRows: constant.sampleRows, standardError: constant.standardError },
-      random: { median: randomMedian, draws: randomFinal },
-      ratioToRandom: randomMedian > 0 ? finalD2 / randomMedian : NaN,
-      prefix: curve.map((value, m) => ({ m: m + 1, value, random: median(draws.map((dr) => dr[m])) })),
-      stages: { seeded: seededD2, descent: descentD2, snapped: snappedD2, refined: refinedD2, final: finalD2 },
+      random: { median: nonNegative(randomMedian), draws: randomFinal.map(nonNegative) },
+      // No ratio when random k-subsets already represent the data exactly (e.g. all rows equal).
+      ratioToRandom: randomMedian > 0 ? nonNegative(finalD2) / randomMedian : null,
+      prefix: curve.map((value, m) => ({ m: m + 1, value: nonNegative(value), random: nonNegative(median(draws.map((dr) => dr[m]))) })),
+      stages: {
+        seeded: nonNegative(seededD2),
+        descent: nonNegative(descentD2),
+        snapped: nonNegative(snappedD2),
+        refined: nonNegative(refinedD2),
+        final: nonNegative(finalD2),
+      },
     },
     trace: {
       iterations: state.iteration,
@@ -298,6 +305,11 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
 }
 
 type RefineStart = SelectionResult['trace']['refineStart'];
+
+/** D² ≥ 0 (h is conditionally negative definite); rounding can leave values like −1e−16. */
+function nonNegative(v: number): number {
+  return Math.max(0, v);
+}
 
 function median(values: number[]): number {
   const v = [...values].sort((a, b) => a - b);

@@ -96,6 +96,16 @@ describe('selection identities', () => {
     expect(Math.abs(all.discrepancy.value)).toBeLessThan(1e-4 * all.scale);
   });
 
+  it('identical rows: D² is 0, the ratio to random is null and the degenerate scale is reported', async () => {
+    const same = new DenseRows(new Float32Array(50 * 3).fill(2.5), 50, 3);
+    const r = await select(same, { k: 4, seed: 1, maxIterations: 50 }, { backend });
+    expect(r.discrepancy.value).toBe(0);
+    expect(r.discrepancy.ratioToRandom).toBeNull();
+    expect(r.trace.scaleDegenerate).toBe(true);
+    expect(r.representatives.reduce((a, b) => a + b.weight, 0)).toBeCloseTo(1, 9);
+    expect(new Set(r.representatives.map((p) => p.index)).size).toBe(4);
+  });
+
   it('rejects k larger than the dataset and bad options with catalogued codes', async () => {
     await expect(select(blobs(5, 1), { k: 6 }, { backend })).rejects.toMatchObject({ code: 'K_TOO_LARGE' });
     await expect(select(rows, { k: 0 }, { backend })).rejects.toMatchObject({ code: 'INVALID_ARGUMENT' });
