@@ -6,6 +6,7 @@ import { OnnxBackend } from '../src/compute/onnx-backend.js';
 import { ReferenceBackend, sqDistancesSync } from '../src/compute/reference-backend.js';
 import { CairnError } from '../src/errors.js';
 import { prng as mulberry32 } from './data/fixtures.js';
+import { prepareRows } from '../src/compute/prepared-rows.js';
 
 /*
  * Every backend against the float64 reference, on seeded random shapes. Backends compute in
@@ -171,7 +172,7 @@ describe('compute backend conformance', () => {
         expect(got.every((v) => v >= 0)).toBe(true);
       });
 
-      it.each(KERNELS)('kernelMatrix, kernelColumnSums, kernelSums, dataTerm: %o', async (kernel) => {
+      it.each(KERNELS)('kernelMatrix, kernelColumnSums, kernelSums, dataTerm, dataTermPrepared: %o', async (kernel) => {
         const want = await kernelTruth(c, kernel);
         const h = await be.kernelMatrix(x, n, p, k, d, kernel);
         expect(h).toBeInstanceOf(Float64Array);
@@ -183,6 +184,10 @@ describe('compute backend conformance', () => {
         const rowWant = Array.from({ length: n }, (_, i) => want.h.slice(i * k, i * k + k).reduce((a, b) => a + b, 0));
         const rowTol = (i: number) => want.h.slice(i * k, i * k + k).reduce((a, b, j) => a + REL_SUM * Math.abs(b) + want.hTol[i * k + j], 0);
         expectClose('kernelSums.rowSums', both.rowSums, rowWant, rowTol);
+        const prepared = await be.dataTermPrepared(prepareRows(x, n, d), n, p, k, d, kernel);
+        expectClose('dataTermPrepared.hSum', prepared.hSum, want.stats.hSum, (j) => want.hSumTol[j]);
+        expectClose('dataTermPrepared.gSum', prepared.gSum, want.stats.gSum, (j) => want.gSumTol[j]);
+        expectClose('dataTermPrepared.gx', prepared.gx, want.stats.gx, (q) => want.gxTol[q]);
         const stats = await be.dataTerm(x, n, p, k, d, kernel);
         expectClose('dataTerm.hSum', stats.hSum, want.stats.hSum, (j) => want.hSumTol[j]);
         expectClose('dataTerm.gSum', stats.gSum, want.stats.gSum, (j) => want.gSumTol[j]);

@@ -34,6 +34,12 @@ export interface ComputeBackend {
    */
   dataTerm(x: Float32Array, n: number, p: Float32Array, k: number, d: number, kernel: KernelSpec): Promise<DataTermStats>;
 
+  /**
+   * dataTerm on prepared rows: `xAug` holds n rows [x, |x|², 1] (n × (d + 2), see prepareRows),
+   * built once for rows used many times, such as the descent's shuffled copy.
+   */
+  dataTermPrepared(xAug: Float32Array, n: number, p: Float32Array, k: number, d: number, kernel: KernelSpec): Promise<DataTermStats>;
+
   /** Nearest point of each row: index and squared distance. With a kernel, also the column sums of h. */
   assign(x: Float32Array, n: number, p: Float32Array, k: number, d: number, kernel?: KernelSpec): Promise<Assignment>;
 

@@ -106,11 +106,25 @@ export class OnnxBackend implements ComputeBackend {
     checkPair(x, n, p, k, d);
     checkKernel(kernel);
     if (this.tiny(n * k * d)) return this.reference.dataTerm(x, n, p, k, d, kernel);
+    return this.dataTermBlocks(n, p, k, d, kernel, `dataTerm:${kernel.kind}`, (r0, r1) => ({ x: rowBlock(x, r0, r1, d) }));
+  }
+
+  async dataTermPrepared(xAug: Float32Array, n: number, p: Float32Array, k: number, d: number, kernel: KernelSpec): Promise<DataTermStats> {
+    for (const [name, v] of Object.entries({ n, k, d })) checkDim(name, v);
+    checkLength('xAug', xAug, n * (d + 2));
+    checkLength('p', p, k * d);
+    checkKernel(kernel);
+    if (this.tiny(n * k * d)) return this.reference.dataTermPrepared(xAug, n, p, k, d, kernel);
+    return this.dataTermBlocks(n, p, k, d, kernel, `dataTermPrepared:${kernel.kind}`, (r0, r1) => ({ xaug: rowBlock(xAug, r0, r1, d + 2) }));
+  }
+
+  /** The data term over row blocks, partial sums added in float64. */
+  private async dataTermBlocks(n: number, p: Float32Array, k: number, d: number, kernel: KernelSpec, key: GraphKey, rows: (r0: number, r1: number) => Feeds): Promise<DataTermStats> {
     const [hSum, gSum] = [new Float64Array(k), new Float64Array(k)];
     let [gx, gx64]: [Float32Array | null, Float64Array | null] = [null, null];
     const fixed = { p: f32(p, [k, d]), ...param(kernel) };
     for (const [r0, r1] of this.blocks(n, k)) {
-      const out = await this.run(`dataTerm:${kernel.kind}`, { x: rowBlock(x, r0, r1, d), ...fixed });
+      const out = await this.run(key, { ...rows(r0, r1), ...fixed });
       addInto(hSum, out.hSum.data as Float32Array);
       addInto(gSum, out.gSum.data as Float32Array);
       if (r0 === 0 && r1 === n) gx = out.gx.data as Float32Array;
@@ -182,9 +196,13 @@ export class OnnxBackend implements ComputeBackend {
           await this.run(key, { a: kind[0] === 't' ? zeros(d, n) : zeros(n, d), b: kind[1] === 't' ? zeros(k, d) : zeros(d, k) });
           continue;
         }
-        const rowBlocked = op === 'dataTerm' || op === 'assign' || op === 'kernelColumnSums' || op === 'kernelSums';
+        const rowBlocked = op === 'dataTerm' || op === 'dataTermPrepared' || op === 'assign' || op === 'kernelColumnSums' || op === 'kernelSums';
         const feeds: Feeds = { x: zeros(rowBlocked ? Math.min(n, this.blockRows(k)) : n, d), p: zeros(k, d) };
         if (op === 'nearestRows') Object.assign(feeds, { p: zeros(Math.min(k, this.blockRows(n)), d), m: int64(Math.min(m, n)) });
+        if (op === 'dataTermPrepared') {
+          feeds.xaug = zeros(Math.min(n, this.blockRows(k)), d + 2);
+          delete feeds.x;
+        }
         if (kind === 'energy') Object.assign(feeds, param({ kind, a: 1 }));
         if (kind === 'gaussian') Object.assign(feeds, param({ kind, sigma: 1 }));
         await this.run(key, feeds);

@@ -26,6 +26,7 @@ export type GraphKey =
   | `kernelColumnSums:${KernelKind}`
   | `kernelSums:${KernelKind}`
   | `dataTerm:${KernelKind}`
+  | `dataTermPrepared:${KernelKind}`
   | 'assign'
   | `assign:${KernelKind}`
   | 'nearestRows'
@@ -119,8 +120,9 @@ function onesColumn(g: Graph, m: string): string {
  * `shift` folds the energy kernel's a² into the same product. X⁺'s last column also makes
  * G·X⁺ return Σ_i g_ij next to the gradient product.
  */
-function augmented(g: Graph, x: string, p: string, shift?: string): { xAug: string; pAug: string } {
-  const xAug = g.op('Concat', [x, sqNorms(g, x), onesColumn(g, x)], [attr.i('axis', 1)]);
+function augmented(g: Graph, x: string, p: string, shift?: string, prepared?: string): { xAug: string; pAug: string } {
+  // A prepared X⁺ (rows already [x, |x|², 1]) saves building it per call: a copy of the block.
+  const xAug = prepared ?? g.op('Concat', [x, sqNorms(g, x), onesColumn(g, x)], [attr.i('axis', 1)]);
   let pp = sqNorms(g, p);
   if (shift) pp = g.op('Add', [pp, shift]);
   const pAug = g.op('Concat', [g.op('Mul', [p, g.floats([-2], [])]), onesColumn(g, p), pp], [attr.i('axis', 1)]);
@@ -156,24 +158,24 @@ interface KernelBlock {
 }
 
 /** Energy: S = sqrt(max(D + a², a²)) from one Gemm whose bias column already holds a²; h = S − a, g = 1/S. */
-function energyBlock(g: Graph, x: string, p: string, a: string, layout: Layout): KernelBlock {
+function energyBlock(g: Graph, x: string, p: string, a: string, layout: Layout, prepared?: string): KernelBlock {
   const a2 = g.op('Mul', [a, a]);
-  const { xAug, pAug } = augmented(g, x, p, a2);
+  const { xAug, pAug } = augmented(g, x, p, a2, prepared);
   const s = g.op('Sqrt', [g.op('Max', [product(g, xAug, pAug, layout), a2])]);
   return { h: g.op('Sub', [s, a]), e: g.op('Reciprocal', [s]), xAug, invS2: null };
 }
 
 /** Gaussian: E = exp(min(c·D, 0)) with c = −1/2σ² folded into P⁺ (k×d work, not n×k). */
-function gaussianBlock(g: Graph, x: string, p: string, sigma: string, layout: Layout): KernelBlock {
+function gaussianBlock(g: Graph, x: string, p: string, sigma: string, layout: Layout, prepared?: string): KernelBlock {
   const invS2 = g.op('Reciprocal', [g.op('Mul', [sigma, sigma])]);
   const c = g.op('Mul', [invS2, g.floats([-0.5], [])]);
-  const { xAug, pAug } = augmented(g, x, p);
+  const { xAug, pAug } = augmented(g, x, p, undefined, prepared);
   const cd = g.op('Min', [product(g, xAug, g.op('Mul', [pAug, c]), layout), g.floats([0], [])]);
   return { h: null, e: g.op('Exp', [cd]), xAug, invS2 };
 }
 
-function kernelBlock(g: Graph, kind: KernelKind, x: string, p: string, param: string, layout: Layout): KernelBlock {
-  return kind === 'energy' ? energyBlock(g, x, p, param, layout) : gaussianBlock(g, x, p, param, layout);
+function kernelBlock(g: Graph, kind: KernelKind, x: string, p: string, param: string, layout: Layout, prepared?: string): KernelBlock {
+  return kind === 'energy' ? energyBlock(g, x, p, param, layout, prepared) : gaussianBlock(g, x, p, param, layout, prepared);
 }
 
 /** Σ over one axis of a 2-D block, dropping it. */
@@ -195,7 +197,8 @@ function sliceCols(g: Graph, m: string, from: string, to: string): string {
 }
 
 type Builder = (g: Graph) => void;
-const perKernel = { kernelMatrix, kernelColumnSums, kernelSums, dataTerm, assign };
+const dataTermPrepared = (g: Graph, kind: KernelKind): void => dataTerm(g, kind, true);
+const perKernel = { kernelMatrix, kernelColumnSums, kernelSums, dataTerm, dataTermPrepared, assign };
 const builders = {
   ...Object.fromEntries(
     (['energy', 'gaussian'] as const).flatMap((kind) => Object.entries(perKernel).map(([op, f]) => [`${op}:${kind}`, (g: Graph) => f(g, kind)])),
@@ -235,12 +238,13 @@ function kernelSums(g: Graph, kind: KernelKind): void {
   g.output('rowSum', FLOAT, ['n'], hSum(g, block, 0));
 }
 
-function dataTerm(g: Graph, kind: KernelKind): void {
-  const [x, p] = dataInputs(g);
-  const block = kernelBlock(g, kind, x, p, kernelParam(g, kind), 'points');
+function dataTerm(g: Graph, kind: KernelKind, prepared = false): void {
+  // Prepared: the rows come as X⁺ = [X, |x|², 1] (n × (d+2)); the graph never sees X alone.
+  const [x, p] = prepared ? [g.input('xaug', FLOAT, ['n', 'e']), g.input('p', FLOAT, ['k', 'd'])] : dataInputs(g);
+  const block = kernelBlock(g, kind, x, p, kernelParam(g, kind), 'points', prepared ? x : undefined);
   // G·X⁺ = [G·X | G·|x|² | Σ_i g]: the gradient product and gSum from one Gemm.
   const prod = g.op('Gemm', [block.e, block.xAug]);
-  const d = g.op('Shape', [x], [attr.i('start', 1), attr.i('end', 2)]);
+  const d = g.op('Shape', [p], [attr.i('start', 1), attr.i('end', 2)]);
   const gsCol = sliceCols(g, prod, g.op('Add', [d, g.int64s([1])]), g.op('Add', [d, g.int64s([2])]));
   let gSum = g.op('Reshape', [gsCol, g.int64s([-1])]);
   let gx = sliceCols(g, prod, g.int64s([0]), d);

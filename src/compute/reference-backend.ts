@@ -1,5 +1,6 @@
 import type { Assignment, ComputeBackend, DataTermStats, KernelSums, NearestRows } from './backend.js';
 import { kernelG, kernelH, type KernelSpec } from './kernel-spec.js';
+import { unprepareRows } from './prepared-rows.js';
 
 /**
  * Plain TypeScript kernels, computed in float64 with direct differences (no |x|²+|p|²−2x·p
@@ -58,6 +59,10 @@ export class ReferenceBackend implements ComputeBackend {
       }
     }
     return { hSum, gSum, gx: Float32Array.from(gx64) };
+  }
+
+  async dataTermPrepared(xAug: Float32Array, n: number, p: Float32Array, k: number, d: number, kernel: KernelSpec): Promise<DataTermStats> {
+    return this.dataTerm(unprepareRows(xAug, n, d), n, p, k, d, kernel);
   }
 
   async assign(x: Float32Array, n: number, p: Float32Array, k: number, d: number, kernel?: KernelSpec): Promise<Assignment> {

@@ -1,4 +1,5 @@
-import type { ComputeBackend } from '../compute/backend.js';
+import type { ComputeBackend, DataTermStats } from '../compute/backend.js';
+import { prepareRows } from '../compute/prepared-rows.js';
 import { kernelG, kernelH, type KernelSpec } from '../compute/kernel-spec.js';
 import { createOptimizerState, optimizerStep, type OptimizerKind, type OptimizerState } from './optimizer.js';
 import { Rng } from './random.js';
@@ -132,16 +133,21 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
       stopReason = 'time';
       break;
     }
-    let batch: Float32Array;
-    if (B === n) batch = fullBatch ??= rows.read(0, n);
-    else if (n * d <= SHUFFLED_COPY_MAX_VALUES) {
+    let stats: DataTermStats;
+    if (B === n) {
+      fullBatch ??= prepareRows(rows.read(0, n), n, d);
+      stats = await backend.dataTermPrepared(fullBatch, B, state.points, k, d, kernel);
+    } else if (n * d <= SHUFFLED_COPY_MAX_VALUES) {
       // A window at a random offset of one random permutation of the rows is a uniformly random
-      // B-subset, read without copying; gathering B scattered rows each step cost more than the kernel.
-      shuffled ??= rows.gather(Rng.fromState(state.shuffleState).shuffle(range(0, n)));
+      // B-subset, read without copying; gathering B scattered rows each step cost more than the
+      // kernel. The copy is kept in prepared form [x, |x|², 1], built once instead of per call.
+      shuffled ??= prepareRows(rows.gather(Rng.fromState(state.shuffleState).shuffle(range(0, n))), n, d);
       const offset = rng.int(n - B + 1);
-      batch = shuffled.subarray(offset * d, (offset + B) * d);
-    } else batch = rows.gather(rng.sample(n, B), (batchBuffer ??= new Float32Array(B * d)));
-    const stats = await backend.dataTerm(batch, B, state.points, k, d, kernel);
+      stats = await backend.dataTermPrepared(shuffled.subarray(offset * (d + 2), (offset + B) * (d + 2)), B, state.points, k, d, kernel);
+    } else {
+      const batch = rows.gather(rng.sample(n, B), (batchBuffer ??= new Float32Array(B * d)));
+      stats = await backend.dataTerm(batch, B, state.points, k, d, kernel);
+    }
     const self = await selfTerm(backend, kernel, state.points, state.weights, k, d);
 
     // Loss estimate and data-term means for the weight solver.
