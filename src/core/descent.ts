@@ -219,6 +219,19 @@ export async function selfTerm(
   k: number,
   d: number,
 ): Promise<{ quadratic: number; K: Float64Array; grad: Float64Array }> {
+  if (k * k * d <= SELF_TERM_DIRECT_MAX) return selfTermDirect(kernel, points, weights, k, d);
+  return selfTermOnBackend(backend, kernel, points, weights, k, d);
+}
+
+/** The self term with the k×k distances and the k×k×d product on the backend. */
+export async function selfTermOnBackend(
+  backend: ComputeBackend,
+  kernel: KernelSpec,
+  points: Float32Array,
+  weights: Float64Array,
+  k: number,
+  d: number,
+): Promise<{ quadratic: number; K: Float64Array; grad: Float64Array }> {
   const sq = await backend.sqDistances(points, k, points, k, d);
   const K = new Float64Array(k * k);
   const G = new Float32Array(k * k);
@@ -241,6 +254,41 @@ export async function selfTerm(
   const grad = new Float64Array(k * d);
   for (let j = 0; j < k; j++) {
     for (let t = 0; t < d; t++) grad[j * d + t] = rowSum[j] * points[j * d + t] - gp[j * d + t];
+  }
+  return { quadratic, K, grad };
+}
+
+/** Up to this k²·d the self term is one direct float64 pass: two backend calls cost more. */
+const SELF_TERM_DIRECT_MAX = 1e5;
+
+/** The self term by direct differences over the k(k − 1)/2 pairs (same result as selfTerm). */
+export function selfTermDirect(kernel: KernelSpec, points: Float32Array, weights: Float64Array, k: number, d: number): { quadratic: number; K: Float64Array; grad: Float64Array } {
+  const K = new Float64Array(k * k);
+  const grad = new Float64Array(k * d);
+  const h0 = kernelH(kernel, 0);
+  let quadratic = 0;
+  for (let j = 0; j < k; j++) {
+    K[j * k + j] = h0;
+    quadratic += weights[j] * weights[j] * h0;
+    for (let i = j + 1; i < k; i++) {
+      let s = 0;
+      for (let t = 0; t < d; t++) {
+        const diff = points[j * d + t] - points[i * d + t];
+        s += diff * diff;
+      }
+      const h = kernelH(kernel, s);
+      const g = kernelG(kernel, s);
+      K[j * k + i] = h;
+      K[i * k + j] = h;
+      quadratic += 2 * weights[j] * weights[i] * h;
+      const gj = weights[i] * g;
+      const gi = weights[j] * g;
+      for (let t = 0; t < d; t++) {
+        const diff = points[j * d + t] - points[i * d + t];
+        grad[j * d + t] += gj * diff;
+        grad[i * d + t] -= gi * diff;
+      }
+    }
   }
   return { quadratic, K, grad };
 }
