@@ -172,11 +172,12 @@ describe('compute backend conformance', () => {
         expect(got.every((v) => v >= 0)).toBe(true);
       });
 
-      it.each(KERNELS)('kernelMatrix, kernelColumnSums, kernelSums, dataTerm, dataTermPrepared: %o', async (kernel) => {
+      it.each(KERNELS)('kernelMatrix(Prepared), kernelColumnSums, kernelSums, dataTerm(Prepared): %o', async (kernel) => {
         const want = await kernelTruth(c, kernel);
         const h = await be.kernelMatrix(x, n, p, k, d, kernel);
         expect(h).toBeInstanceOf(Float64Array);
         expectClose('kernelMatrix', h, want.h, (i) => want.hTol[i]);
+        expectClose('kernelMatrixPrepared', await be.kernelMatrixPrepared(prepareRows(x, n, d), n, p, k, d, kernel), want.h, (i) => want.hTol[i]);
         const sums = await be.kernelColumnSums(x, n, p, k, d, kernel);
         expectClose('kernelColumnSums', sums, want.stats.hSum, (j) => want.hSumTol[j]);
         const both = await be.kernelSums(x, n, p, k, d, kernel);

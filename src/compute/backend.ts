@@ -17,6 +17,9 @@ export interface ComputeBackend {
   /** out[i·nb + j] = h(|a_i − b_j|) (na×nb), float64 for the quadratic forms built from it. */
   kernelMatrix(a: Float32Array, na: number, b: Float32Array, nb: number, d: number, kernel: KernelSpec): Promise<Float64Array>;
 
+  /** kernelMatrix with `a` as prepared rows [x, |x|², 1] (na × (d + 2), see prepareRows). */
+  kernelMatrixPrepared(aAug: Float32Array, na: number, b: Float32Array, nb: number, d: number, kernel: KernelSpec): Promise<Float64Array>;
+
   /** out[j] = Σ_i h(|x_i − c_j|) over the n rows (m values). */
   kernelColumnSums(x: Float32Array, n: number, c: Float32Array, m: number, d: number, kernel: KernelSpec): Promise<Float64Array>;
 

@@ -74,6 +74,14 @@ export class OnnxBackend implements ComputeBackend {
     return Float64Array.from(out.h.data as Float32Array);
   }
 
+  async kernelMatrixPrepared(aAug: Float32Array, na: number, b: Float32Array, nb: number, d: number, kernel: KernelSpec): Promise<Float64Array> {
+    checkPrepared(aAug, na, b, nb, d);
+    checkKernel(kernel);
+    if (this.tiny(na * nb * d)) return this.reference.kernelMatrixPrepared(aAug, na, b, nb, d, kernel);
+    const out = await this.run(`kernelMatrixPrepared:${kernel.kind}`, { xaug: f32(aAug, [na, d + 2]), p: f32(b, [nb, d]), ...param(kernel) });
+    return Float64Array.from(out.h.data as Float32Array);
+  }
+
   async kernelColumnSums(x: Float32Array, n: number, c: Float32Array, m: number, d: number, kernel: KernelSpec): Promise<Float64Array> {
     checkPair(x, n, c, m, d);
     checkKernel(kernel);
@@ -110,9 +118,7 @@ export class OnnxBackend implements ComputeBackend {
   }
 
   async dataTermPrepared(xAug: Float32Array, n: number, p: Float32Array, k: number, d: number, kernel: KernelSpec): Promise<DataTermStats> {
-    for (const [name, v] of Object.entries({ n, k, d })) checkDim(name, v);
-    checkLength('xAug', xAug, n * (d + 2));
-    checkLength('p', p, k * d);
+    checkPrepared(xAug, n, p, k, d);
     checkKernel(kernel);
     if (this.tiny(n * k * d)) return this.reference.dataTermPrepared(xAug, n, p, k, d, kernel);
     return this.dataTermBlocks(n, p, k, d, kernel, `dataTermPrepared:${kernel.kind}`, (r0, r1) => ({ xaug: rowBlock(xAug, r0, r1, d + 2) }));
@@ -199,7 +205,7 @@ export class OnnxBackend implements ComputeBackend {
         const rowBlocked = op === 'dataTerm' || op === 'dataTermPrepared' || op === 'assign' || op === 'kernelColumnSums' || op === 'kernelSums';
         const feeds: Feeds = { x: zeros(rowBlocked ? Math.min(n, this.blockRows(k)) : n, d), p: zeros(k, d) };
         if (op === 'nearestRows') Object.assign(feeds, { p: zeros(Math.min(k, this.blockRows(n)), d), m: int64(Math.min(m, n)) });
-        if (op === 'dataTermPrepared') {
+        if (op === 'dataTermPrepared' || op === 'kernelMatrixPrepared') {
           feeds.xaug = zeros(Math.min(n, this.blockRows(k)), d + 2);
           delete feeds.x;
         }
@@ -307,6 +313,13 @@ function checkLength(name: string, arr: Float32Array, needed: number): void {
 function checkPair(x: Float32Array, n: number, p: Float32Array, k: number, d: number): void {
   for (const [name, v] of Object.entries({ n, k, d })) checkDim(name, v);
   checkLength('x', x, n * d);
+  checkLength('p', p, k * d);
+}
+
+/** Prepared rows hold d + 2 values each: [x, |x|², 1]. */
+function checkPrepared(xAug: Float32Array, n: number, p: Float32Array, k: number, d: number): void {
+  for (const [name, v] of Object.entries({ n, k, d })) checkDim(name, v);
+  checkLength('xAug', xAug, n * (d + 2));
   checkLength('p', p, k * d);
 }
 

@@ -23,6 +23,7 @@ export type KernelKind = 'energy' | 'gaussian';
 export type GraphKey =
   | 'sqDistances'
   | `kernelMatrix:${KernelKind}`
+  | `kernelMatrixPrepared:${KernelKind}`
   | `kernelColumnSums:${KernelKind}`
   | `kernelSums:${KernelKind}`
   | `dataTerm:${KernelKind}`
@@ -189,6 +190,8 @@ function hSum(g: Graph, block: KernelBlock, axis: number): string {
 }
 
 const dataInputs = (g: Graph): [string, string] => [g.input('x', FLOAT, ['n', 'd']), g.input('p', FLOAT, ['k', 'd'])];
+/** Prepared rows X⁺ = [X, |x|², 1] (n × (d+2)) instead of X. */
+const preparedInputs = (g: Graph): [string, string] => [g.input('xaug', FLOAT, ['n', 'e']), g.input('p', FLOAT, ['k', 'd'])];
 const kernelParam = (g: Graph, kind: KernelKind): string => g.input(kind === 'energy' ? 'a' : 'sigma', FLOAT, []);
 
 /** Columns [from, to) of m; the bounds are 1-element int64 tensors, computed in-graph from the symbolic d. */
@@ -198,7 +201,8 @@ function sliceCols(g: Graph, m: string, from: string, to: string): string {
 
 type Builder = (g: Graph) => void;
 const dataTermPrepared = (g: Graph, kind: KernelKind): void => dataTerm(g, kind, true);
-const perKernel = { kernelMatrix, kernelColumnSums, kernelSums, dataTerm, dataTermPrepared, assign };
+const kernelMatrixPrepared = (g: Graph, kind: KernelKind): void => kernelMatrix(g, kind, true);
+const perKernel = { kernelMatrix, kernelMatrixPrepared, kernelColumnSums, kernelSums, dataTerm, dataTermPrepared, assign };
 const builders = {
   ...Object.fromEntries(
     (['energy', 'gaussian'] as const).flatMap((kind) => Object.entries(perKernel).map(([op, f]) => [`${op}:${kind}`, (g: Graph) => f(g, kind)])),
@@ -219,9 +223,9 @@ const builders = {
   },
 } as Record<GraphKey, Builder>;
 
-function kernelMatrix(g: Graph, kind: KernelKind): void {
-  const [x, p] = dataInputs(g);
-  const block = kernelBlock(g, kind, x, p, kernelParam(g, kind), 'rows');
+function kernelMatrix(g: Graph, kind: KernelKind, prepared = false): void {
+  const [x, p] = prepared ? preparedInputs(g) : dataInputs(g);
+  const block = kernelBlock(g, kind, x, p, kernelParam(g, kind), 'rows', prepared ? x : undefined);
   g.output('h', FLOAT, ['n', 'k'], block.h ?? g.op('Neg', [block.e]));
 }
 
@@ -240,7 +244,7 @@ function kernelSums(g: Graph, kind: KernelKind): void {
 
 function dataTerm(g: Graph, kind: KernelKind, prepared = false): void {
   // Prepared: the rows come as X⁺ = [X, |x|², 1] (n × (d+2)); the graph never sees X alone.
-  const [x, p] = prepared ? [g.input('xaug', FLOAT, ['n', 'e']), g.input('p', FLOAT, ['k', 'd'])] : dataInputs(g);
+  const [x, p] = prepared ? preparedInputs(g) : dataInputs(g);
   const block = kernelBlock(g, kind, x, p, kernelParam(g, kind), 'points', prepared ? x : undefined);
   // G·X⁺ = [G·X | G·|x|² | Σ_i g]: the gradient product and gSum from one Gemm.
   const prod = g.op('Gemm', [block.e, block.xAug]);

@@ -22,6 +22,10 @@ export class ReferenceBackend implements ComputeBackend {
     return out;
   }
 
+  async kernelMatrixPrepared(aAug: Float32Array, na: number, b: Float32Array, nb: number, d: number, kernel: KernelSpec): Promise<Float64Array> {
+    return this.kernelMatrix(unprepareRows(aAug, na, d), na, b, nb, d, kernel);
+  }
+
   async kernelColumnSums(x: Float32Array, n: number, c: Float32Array, m: number, d: number, kernel: KernelSpec): Promise<Float64Array> {
     const out = new Float64Array(m);
     for (let i = 0; i < n; i++) {

@@ -1,5 +1,6 @@
 import type { ComputeBackend } from '../compute/backend.js';
 import type { KernelSpec } from '../compute/kernel-spec.js';
+import { prepareRows } from '../compute/prepared-rows.js';
 
 /** Cached columns hold at most this many values in all (160 MB of float64). */
 const MAX_CACHED_VALUES = 2e7;
@@ -11,6 +12,8 @@ const MAX_CACHED_VALUES = 2e7;
  */
 export class KernelColumns {
   private readonly cache = new Map<number, Float64Array>();
+  /** The pool as prepared rows, built once: each column then reads it without a per-call copy. */
+  private readonly prepared: Float32Array;
 
   constructor(
     private readonly backend: ComputeBackend,
@@ -18,7 +21,9 @@ export class KernelColumns {
     readonly pool: Float32Array,
     readonly size: number,
     readonly d: number,
-  ) {}
+  ) {
+    this.prepared = prepareRows(pool, size, d);
+  }
 
   async get(items: ArrayLike<number>): Promise<Float64Array[]> {
     const missing = Array.from(new Set(Array.from(items))).filter((u) => !this.cache.has(u));
@@ -26,7 +31,7 @@ export class KernelColumns {
       if ((this.cache.size + missing.length) * this.size > MAX_CACHED_VALUES) this.cache.clear();
       const points = new Float32Array(missing.length * this.d);
       missing.forEach((u, j) => points.set(this.pool.subarray(u * this.d, (u + 1) * this.d), j * this.d));
-      const block = await this.backend.kernelMatrix(this.pool, this.size, points, missing.length, this.d, this.kernel);
+      const block = await this.backend.kernelMatrixPrepared(this.prepared, this.size, points, missing.length, this.d, this.kernel);
       missing.forEach((u, j) => {
         const col = new Float64Array(this.size);
         for (let v = 0; v < this.size; v++) col[v] = block[v * missing.length + j];
