@@ -15,6 +15,7 @@ import { spawnSync } from 'node:child_process';
 import os from 'node:os';
 import { performance } from 'node:perf_hooks';
 import { OnnxBackend } from '../../dist/compute/onnx-backend.js';
+import { prepareRows } from '../../dist/compute/prepared-rows.js';
 import { ReferenceBackend } from '../../dist/compute/reference-backend.js';
 
 const B = 8192;
@@ -115,9 +116,12 @@ const p = randomMatrix(K, D);
 const onnx = await OnnxBackend.create({ minWork: 0, threads: THREADS });
 const energy = { kind: 'energy', a: 1 };
 const gaussian = { kind: 'gaussian', sigma: 8 };
-await onnx.warmUp([{ n: B, k: K, d: D }], ['sqDistances', 'gemm:nt', 'assign', 'dataTerm:energy', 'dataTerm:gaussian']);
+// The descent passes rows prepared once as [x, |x|², 1]; the plain form builds them per call.
+const xPrepared = prepareRows(x, B, D);
+await onnx.warmUp([{ n: B, k: K, d: D }], ['sqDistances', 'gemm:nt', 'assign', 'dataTerm:energy', 'dataTerm:gaussian', 'dataTermPrepared:energy']);
 const ops = [
   ['dataTerm energy (2 products)', 2 * PRODUCT, () => onnx.dataTerm(x, B, p, K, D, energy)],
+  ['dataTerm energy, prepared rows', 2 * PRODUCT, () => onnx.dataTermPrepared(xPrepared, B, p, K, D, energy)],
   ['dataTerm gaussian (2 products)', 2 * PRODUCT, () => onnx.dataTerm(x, B, p, K, D, gaussian)],
   ['assign (product + argmin)', PRODUCT, () => onnx.assign(x, B, p, K, D)],
   ['sqDistances (returns B×k)', PRODUCT, () => onnx.sqDistances(x, B, p, K, D)],
