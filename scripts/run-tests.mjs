@@ -27,7 +27,12 @@ let failed = 0;
 if (existsSync(report)) {
   const r = JSON.parse(readFileSync(report, 'utf8'));
   passed = r.numPassedTests ?? 0;
-  failed = (r.numFailedTests ?? 0) + (r.numFailedTestSuites ?? 0) * (r.numTotalTests === 0 ? 1 : 0);
+  failed = r.numFailedTests ?? 0;
+  // A test file that fails to load reports no failed test; count it once so it cannot pass silently.
+  for (const file of r.testResults ?? []) {
+    const failedInFile = (file.assertionResults ?? []).filter((a) => a.status === 'failed').length;
+    if (file.status === 'failed' && failedInFile === 0) failed++;
+  }
 } else {
   failed = 1;
 }
