@@ -51,7 +51,7 @@ export async function runSelectCommand(input: SelectCommandInput): Promise<CliRe
     const items = await dataset.readItems();
     const labels = meta.hasLabels ? labelCodes(items.labels) : null;
     const bar = new ProgressBar(process.stderr, input.progress);
-    const result = await select(rows, input.options, { backend, labels, onProgress: (p) => bar.update(p) });
+    const result = await select(rows, input.options, { backend, labels, sourceIsScratch: true, onProgress: (p) => bar.update(p) });
     const out: CliResult = {
       ...result,
       dataset: {

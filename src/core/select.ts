@@ -24,6 +24,8 @@ export interface SelectContext {
   onProgress?: (p: SelectProgress) => void;
   signal?: AbortSignal;
   now?: () => number;
+  /** The caller owns the rows and does not need them afterwards: raw and standardize spaces transform them in place. */
+  sourceIsScratch?: boolean;
   /** Warm start: k starting points in the selection space (row-major), instead of k-means++ seeds. */
   initialPoints?: Float32Array;
 }
@@ -60,7 +62,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   };
 
   progress('prepare');
-  const space = await prepareSpace(source, parseSpace(o.space), backend, rng);
+  const space = await prepareSpace(source, parseSpace(o.space), backend, rng, { inPlace: ctx.sourceIsScratch });
   const rows = space.rows;
   const d = rows.cols;
   endPhase('prepare');

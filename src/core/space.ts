@@ -72,12 +72,24 @@ export function columnMoments(rows: RowSource, blockRows = 16_384): { mean: Floa
  * (Halko, Martinsson & Tropp, SIAM Review 2011, Alg. 4.4 with q power steps and 2M + 10 columns),
  * whose products run on the compute backend; the projected rows are held in memory (N×M floats).
  */
-export async function prepareSpace(source: RowSource, spec: SpaceSpec, backend: ComputeBackend, rng: Rng): Promise<PreparedSpace> {
+export async function prepareSpace(
+  source: RowSource,
+  spec: SpaceSpec,
+  backend: ComputeBackend,
+  rng: Rng,
+  options: { inPlace?: boolean } = {},
+): Promise<PreparedSpace> {
   const { mean, std } = columnMoments(source);
   const shift = Float32Array.from(mean);
-  if (spec.kind === 'raw') return { rows: materialise(new AffineRows(source, shift, null)), spec };
-  if (spec.kind === 'standardize') {
-    return { rows: materialise(new AffineRows(source, shift, Float32Array.from(std, (s) => (s > 0 ? 1 / s : 0)))), spec };
+  const scale = spec.kind === 'standardize' ? Float32Array.from(std, (s) => (s > 0 ? 1 / s : 0)) : null;
+  if (spec.kind !== 'pca') {
+    // A caller that owns the rows (the CLI's loaded file) lets them be transformed in place:
+    // one copy of the data fewer.
+    if (options.inPlace && source instanceof DenseRows) {
+      transformInPlace(source.data, source.cols, shift, scale);
+      return { rows: source, spec };
+    }
+    return { rows: materialise(new AffineRows(source, shift, scale)), spec };
   }
   const centred = new AffineRows(source, shift, null);
   const d = source.cols;
@@ -125,6 +137,12 @@ const MATERIALISE_MAX_VALUES = 2 ** 28;
  * The descent gathers a random minibatch every iteration; transforming those rows on the fly
  * costs a second pass over them, so a dataset that fits is transformed once, up front.
  */
+function transformInPlace(data: Float32Array, d: number, shift: Float32Array, scale: Float32Array | null): void {
+  for (let i = 0; i < data.length; i += d) {
+    for (let t = 0; t < d; t++) data[i + t] = scale ? (data[i + t] - shift[t]) * scale[t] : data[i + t] - shift[t];
+  }
+}
+
 function materialise(rows: AffineRows): RowSource {
   if (rows.rows * rows.cols > MATERIALISE_MAX_VALUES) return rows;
   return new DenseRows(rows.read(0, rows.rows), rows.rows, rows.cols);

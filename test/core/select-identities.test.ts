@@ -65,6 +65,17 @@ describe('selection identities', () => {
     expect(c.discrepancy.stages.seeded).not.toBe(a.discrepancy.stages.seeded);
   });
 
+  it('transforming scratch rows in place gives the same result as working on a copy', async () => {
+    const strip = (r: SelectionResult) => ({ ...r, trace: { ...r.trace, seconds: {} } });
+    for (const space of ['raw', 'standardize']) {
+      const onCopy = await select(rows, { k: 6, seed: 2, maxIterations: 100, space }, { backend });
+      const scratch = new DenseRows(Float32Array.from(rows.data), n, 6);
+      const inPlace = await select(scratch, { k: 6, seed: 2, maxIterations: 100, space }, { backend, sourceIsScratch: true });
+      expect(strip(inPlace)).toEqual(strip(onCopy));
+      expect(scratch.data).not.toEqual(rows.data); // it was used as scratch
+    }
+  });
+
   it('reported D² equals an independent evaluation of the weighted representatives', async () => {
     const r = await select(rows, { k: 10, seed: 2, maxIterations: 200 }, { backend });
     const reps = rows.gather(r.representatives.map((p) => p.index));
