@@ -170,7 +170,7 @@ async function d2(kernel, indices, weights) {
   const w = Float64Array.from(weights, (v) => v / sum);
   const points = rows.gather(indices);
   const c = await dataTermMeans(rows, backend, kernel, points, k);
-  const { K } = await selfTerm(backend, kernel, points, w, k, D);
+  const { K } = await selfTerm(backend, kernel, points, w, k, D, false);
   return discrepancyFromTerms(c, K, w, (await constantFor(kernel)).value);
 }
 

@@ -1,6 +1,6 @@
 import type { ComputeBackend } from '../compute/backend.js';
 import type { KernelSpec } from '../compute/kernel-spec.js';
-import type { RowSource } from './rows.js';
+import { blockRanges, type RowSource } from './rows.js';
 
 export interface LabelCodes {
   /** Per row: index into `names`, or −1 for no label. */
@@ -55,8 +55,7 @@ export async function coverageStats(
   const assignment = new Int32Array(n);
   const distance = new Float32Array(n);
   const hSum = new Float64Array(k);
-  for (let start = 0; start < n; start += blockRows) {
-    const count = Math.min(blockRows, n - start);
+  for (const [start, count] of blockRanges(n, blockRows)) {
     const a = await backend.assign(rows.read(start, count), count, reps, k, rows.cols, kernel);
     assignment.set(a.index, start);
     for (let i = 0; i < count; i++) distance[start + i] = Math.sqrt(Math.max(a.sqDist[i], 0));
@@ -113,7 +112,7 @@ export async function coverageStats(
     p90Distance: quantileSorted(sorted, 0.9),
     maxDistance: sorted[n - 1],
     coveredWithin,
-    worstCovered: worst(distance, assignment, o.worstCount),
+    worstCovered: worst(distance, sorted, assignment, o.worstCount),
     labels: labels ? labelSummary(labels, assignment, distance, perRepresentative) : null,
     dataTermMeans: Float64Array.from(hSum, (v) => v / n),
     assignment,
@@ -142,12 +141,12 @@ function upperBound(sorted: Float32Array, x: number): number {
   return lo;
 }
 
-function worst(distance: Float32Array, assignment: Int32Array, count: number): CoverageStats['worstCovered'] {
+function worst(distance: Float32Array, sorted: Float32Array, assignment: Int32Array, count: number): CoverageStats['worstCovered'] {
   const m = Math.min(count, distance.length);
   if (m === 0) return [];
-  // A threshold from a partial sort keeps this O(n log m)-ish without sorting all indices.
-  const top = Float32Array.from(distance).sort().subarray(distance.length - m);
-  const threshold = top[0];
+  // The m-th largest distance (from the sorted copy the caller already has) bounds the candidates,
+  // so only those indices are sorted.
+  const threshold = sorted[distance.length - m];
   const picked: number[] = [];
   for (let i = 0; i < distance.length; i++) if (distance[i] >= threshold) picked.push(i);
   picked.sort((a, b) => distance[b] - distance[a] || a - b);

@@ -3,8 +3,8 @@ import { prepareRows } from '../compute/prepared-rows.js';
 import { kernelG, kernelH, type KernelSpec } from '../compute/kernel-spec.js';
 import { createOptimizerState, optimizerStep, type OptimizerKind, type OptimizerState } from './optimizer.js';
 import { Rng } from './random.js';
-import type { RowSource } from './rows.js';
-import { dataTermMeans, range } from './discrepancy.js';
+import { range, type RowSource } from './rows.js';
+import { dataTermMeans } from './discrepancy.js';
 import { solveWeights } from './weights.js';
 
 export interface DescentOptions {
@@ -184,7 +184,7 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
     if (o.optimizeWeights && k > 1 && fraction >= o.weightsFrom && state.iteration % o.weightEvery === 0) {
       // c from the (larger) weight sample rather than the minibatch: noisy c gives noisy weights.
       const cw = ctx.weightRows ? await dataTermMeans(ctx.weightRows, backend, kernel, state.points, k) : state.cEma;
-      const { K } = await selfTerm(backend, kernel, state.points, state.weights, k, d);
+      const { K } = await selfTerm(backend, kernel, state.points, state.weights, k, d, false);
       state.weights = solveWeights(cw, K, { start: state.weights, maxIterations: 500, tol: 1e-6 }).weights;
     }
     if (state.iteration % traceEvery === 0) trace.push([state.iteration, state.lossEma]);
@@ -210,6 +210,8 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
  * Exact self term: quadratic = Σᵢⱼ wᵢwⱼ h(|pᵢ − pⱼ|), K = [h(|pᵢ − pⱼ|)], and for each j
  * grad[j] = Σᵢ wᵢ g(|pⱼ − pᵢ|²)(pⱼ − pᵢ), so ∇ₚⱼ of the quadratic is 2wⱼ·grad[j].
  * The k×k×d product runs on the backend (gemm); the diagonal is skipped since pⱼ − pⱼ = 0.
+ * With `gradient` false only K and the quadratic are formed (grad is empty): D² evaluations need
+ * no k×k×d product.
  */
 export async function selfTerm(
   backend: ComputeBackend,
@@ -218,9 +220,10 @@ export async function selfTerm(
   weights: Float64Array,
   k: number,
   d: number,
+  gradient = true,
 ): Promise<{ quadratic: number; K: Float64Array; grad: Float64Array }> {
-  if (k * k * d <= SELF_TERM_DIRECT_MAX) return selfTermDirect(kernel, points, weights, k, d);
-  return selfTermOnBackend(backend, kernel, points, weights, k, d);
+  if (k * k * d <= SELF_TERM_DIRECT_MAX) return selfTermDirect(kernel, points, weights, k, d, gradient);
+  return selfTermOnBackend(backend, kernel, points, weights, k, d, gradient);
 }
 
 /** The self term with the k×k distances and the k×k×d product on the backend. */
@@ -231,6 +234,7 @@ export async function selfTermOnBackend(
   weights: Float64Array,
   k: number,
   d: number,
+  gradient = true,
 ): Promise<{ quadratic: number; K: Float64Array; grad: Float64Array }> {
   const sq = await backend.sqDistances(points, k, points, k, d);
   const K = new Float64Array(k * k);
@@ -243,13 +247,14 @@ export async function selfTermOnBackend(
       const h = kernelH(kernel, s);
       K[j * k + i] = h;
       quadratic += weights[j] * weights[i] * h;
-      if (i !== j) {
+      if (gradient && i !== j) {
         const g = weights[i] * kernelG(kernel, s);
         G[j * k + i] = g;
         rowSum[j] += g;
       }
     }
   }
+  if (!gradient) return { quadratic, K, grad: new Float64Array(0) };
   const gp = await backend.gemm(G, k, k, points, k, d, false, false);
   const grad = new Float64Array(k * d);
   for (let j = 0; j < k; j++) {
@@ -262,9 +267,16 @@ export async function selfTermOnBackend(
 const SELF_TERM_DIRECT_MAX = 1e5;
 
 /** The self term by direct differences over the k(k − 1)/2 pairs (same result as selfTerm). */
-export function selfTermDirect(kernel: KernelSpec, points: Float32Array, weights: Float64Array, k: number, d: number): { quadratic: number; K: Float64Array; grad: Float64Array } {
+export function selfTermDirect(
+  kernel: KernelSpec,
+  points: Float32Array,
+  weights: Float64Array,
+  k: number,
+  d: number,
+  gradient = true,
+): { quadratic: number; K: Float64Array; grad: Float64Array } {
   const K = new Float64Array(k * k);
-  const grad = new Float64Array(k * d);
+  const grad = new Float64Array(gradient ? k * d : 0);
   const h0 = kernelH(kernel, 0);
   let quadratic = 0;
   for (let j = 0; j < k; j++) {
@@ -281,6 +293,7 @@ export function selfTermDirect(kernel: KernelSpec, points: Float32Array, weights
       K[j * k + i] = h;
       K[i * k + j] = h;
       quadratic += 2 * weights[j] * weights[i] * h;
+      if (!gradient) continue;
       const gj = weights[i] * g;
       const gi = weights[j] * g;
       for (let t = 0; t < d; t++) {

@@ -1,7 +1,7 @@
 import type { ComputeBackend } from '../compute/backend.js';
 import { kernelAtZero, type KernelSpec } from '../compute/kernel-spec.js';
 import type { Rng } from './random.js';
-import { DenseRows, type RowSource } from './rows.js';
+import { blockRanges, DenseRows, range, type RowSource } from './rows.js';
 
 /**
  * D²(μ, ν) = 2 Σᵢ wᵢ cᵢ − Σᵢⱼ wᵢwⱼ Kᵢⱼ − E h(|Y − Y'|), with cᵢ = E_y h(|pᵢ − y|), Kᵢⱼ = h(|pᵢ − pⱼ|)
@@ -99,11 +99,9 @@ export async function constantTerm(
   // h is symmetric, so each off-diagonal block (a, b) is computed once and gives the sums of
   // rows a (its column margin) and of rows b (its row margin): half the work of all blocks.
   const rowSums = new Float64Array(m);
-  for (let a = 0; a < m; a += blockRows) {
-    const ca = Math.min(blockRows, m - a);
-    const cBlock = reference.gather(range(a, ca));
-    for (let b = a; b < m; b += blockRows) {
-      const cb = Math.min(blockRows, m - b);
+  for (const [a, ca] of blockRanges(m, blockRows)) {
+    const cBlock = reference.read(a, ca);
+    for (const [b, cb] of blockRanges(m, blockRows, a)) {
       const sums = await backend.kernelSums(reference.read(b, cb), cb, cBlock, ca, d, kernel);
       for (let j = 0; j < ca; j++) rowSums[a + j] += sums.colSums[j];
       if (b !== a) for (let i = 0; i < cb; i++) rowSums[b + i] += sums.rowSums[i];
@@ -142,8 +140,7 @@ export async function dataTermMeans(
   blockRows = 8192,
 ): Promise<Float64Array> {
   const c = new Float64Array(k);
-  for (let start = 0; start < rows.rows; start += blockRows) {
-    const count = Math.min(blockRows, rows.rows - start);
+  for (const [start, count] of blockRanges(rows.rows, blockRows)) {
     const sums = await backend.kernelColumnSums(rows.read(start, count), count, points, k, rows.cols, kernel);
     for (let j = 0; j < k; j++) c[j] += sums[j];
   }
@@ -168,11 +165,5 @@ function normalise(w: ArrayLike<number> | undefined, n: number): Float64Array {
   let sum = 0;
   for (let i = 0; i < n; i++) sum += w[i];
   for (let i = 0; i < n; i++) out[i] = w[i] / sum;
-  return out;
-}
-
-export function range(start: number, count: number): Int32Array {
-  const out = new Int32Array(count);
-  for (let i = 0; i < count; i++) out[i] = start + i;
   return out;
 }

@@ -79,14 +79,14 @@ export class AffineRows implements RowSource {
   }
 }
 
-/** Calls fn on consecutive blocks of at most `blockRows` rows. */
-export async function forEachBlock(
-  source: RowSource,
-  blockRows: number,
-  fn: (block: Float32Array, start: number, count: number) => Promise<void> | void,
-): Promise<void> {
-  for (let start = 0; start < source.rows; start += blockRows) {
-    const count = Math.min(blockRows, source.rows - start);
-    await fn(source.read(start, count), start, count);
-  }
+/** [start, count] of consecutive blocks of at most `blockRows` rows covering [from, rows). */
+export function* blockRanges(rows: number, blockRows: number, from = 0): Generator<[number, number]> {
+  for (let start = from; start < rows; start += blockRows) yield [start, Math.min(blockRows, rows - start)];
+}
+
+/** The indices start, start + 1, …, start + count − 1. */
+export function range(start: number, count: number): Int32Array {
+  const out = new Int32Array(count);
+  for (let i = 0; i < count; i++) out[i] = start + i;
+  return out;
 }

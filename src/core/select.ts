@@ -3,7 +3,7 @@ import type { KernelSpec } from '../compute/kernel-spec.js';
 import { CairnError } from '../errors.js';
 import { coverageStats, type LabelCodes } from './coverage.js';
 import { runDescent, initialDescentState, selfTerm } from './descent.js';
-import { constantTerm, dataTermMeans, discrepancyFromTerms, range } from './discrepancy.js';
+import { constantTerm, dataTermMeans, discrepancyFromTerms } from './discrepancy.js';
 import { autoIterations, parseSelectOptions, type SelectOptionsInput } from './options.js';
 import { greedyPrefixOrder, prefixCurve } from './ordering.js';
 import { Rng } from './random.js';
@@ -11,7 +11,7 @@ import { greedyForward } from './greedy.js';
 import { KernelColumns } from './kernel-columns.js';
 import { refineBySwaps } from './refine.js';
 import type { SelectionResult, SelectProgress } from './result.js';
-import { DenseRows, type RowSource } from './rows.js';
+import { DenseRows, range, type RowSource } from './rows.js';
 import { medianDistance } from './scale.js';
 import { seedKMeansPlusPlus } from './seeding.js';
 import { assignDistinct, nearestCandidates } from './snap.js';
@@ -80,7 +80,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   const scoring = n <= o.refineSampleRows ? rows : new DenseRows(rows.gather(rng.sample(n, o.refineSampleRows)), o.refineSampleRows, d);
   const stageD2 = async (points: Float32Array, w: Float64Array): Promise<number> => {
     const c = await dataTermMeans(scoring, backend, kernel, points, o.k);
-    const { K } = await selfTerm(backend, kernel, points, w, o.k, d);
+    const { K } = await selfTerm(backend, kernel, points, w, o.k, d, false);
     return discrepancyFromTerms(c, K, w, constant.value);
   };
 
@@ -213,7 +213,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   const s2 = [0.25, 0.5, 0.75, 1].map((f) => f * s);
   const radii = o.radius ? [...s2, o.radius].sort((a, b) => a - b) : s2;
   const cov = await coverageStats(rows, backend, kernel, reps, o.k, ctx.labels ?? null, { radii, worstCount: o.worstCount });
-  const { K } = await selfTerm(backend, kernel, reps, uniform, o.k, d);
+  const { K } = await selfTerm(backend, kernel, reps, uniform, o.k, d, false);
   const c = cov.dataTermMeans;
   let weights: Float64Array = uniform;
   let weightSolver: SelectionResult['trace']['weightSolver'] = null;
@@ -232,7 +232,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
     const idx = rng.sample(n, o.k);
     const pts = rows.gather(idx);
     const cr = await dataTermMeans(scoring, backend, kernel, pts, o.k);
-    const { K: Kr } = await selfTerm(backend, kernel, pts, uniform, o.k, d);
+    const { K: Kr } = await selfTerm(backend, kernel, pts, uniform, o.k, d, false);
     draws.push(prefixCurve(cr, Kr, constant.value));
   }
   const randomFinal = draws.map((curve) => curve[o.k - 1]);

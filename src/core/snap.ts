@@ -1,6 +1,6 @@
 import type { ComputeBackend } from '../compute/backend.js';
 import type { Rng } from './random.js';
-import type { RowSource } from './rows.js';
+import { blockRanges, type RowSource } from './rows.js';
 
 export interface CandidateLists {
   /** k×M row indices, nearest first. */
@@ -25,8 +25,7 @@ export async function nearestCandidates(
   const d = rows.cols;
   const index = new Int32Array(k * M).fill(-1);
   const sqDist = new Float32Array(k * M).fill(Infinity);
-  for (let start = 0; start < rows.rows; start += blockRows) {
-    const count = Math.min(blockRows, rows.rows - start);
+  for (const [start, count] of blockRanges(rows.rows, blockRows)) {
     const mb = Math.min(M, count);
     const near = await backend.nearestRows(rows.read(start, count), count, points, k, d, mb);
     for (let j = 0; j < k; j++) {

@@ -1,7 +1,7 @@
 import { EigenvalueDecomposition, Matrix, QrDecomposition } from 'ml-matrix';
 import type { ComputeBackend } from '../compute/backend.js';
 import type { Rng } from './random.js';
-import { AffineRows, DenseRows, type RowSource } from './rows.js';
+import { AffineRows, blockRanges, DenseRows, type RowSource } from './rows.js';
 
 /** The geometry a selection runs in. Distances in results are measured in this space. */
 export type SpaceSpec = { kind: 'raw' } | { kind: 'standardize' } | { kind: 'pca'; components: number };
@@ -21,6 +21,9 @@ export interface PreparedSpace {
  */
 const POWER_STEPS = 5;
 
+/** Rows per streamed pass over the data. */
+const BLOCK_ROWS = 16_384;
+
 export function parseSpace(text: string): SpaceSpec {
   if (text === 'raw' || text === 'standardize') return { kind: text };
   const m = /^pca:(\d+)$/.exec(text);
@@ -33,15 +36,14 @@ export function parseSpace(text: string): SpaceSpec {
  * then squared deviations from it, both in float64), merged across blocks with the pairwise update
  * of Chan, Golub & LeVeque (1979) — stable without a division per value.
  */
-export function columnMoments(rows: RowSource, blockRows = 16_384): { mean: Float64Array; std: Float64Array } {
+export function columnMoments(rows: RowSource, blockRows = BLOCK_ROWS): { mean: Float64Array; std: Float64Array } {
   const d = rows.cols;
   const mean = new Float64Array(d);
   const m2 = new Float64Array(d);
   const blockMean = new Float64Array(d);
   const blockM2 = new Float64Array(d);
   let count = 0;
-  for (let start = 0; start < rows.rows; start += blockRows) {
-    const c = Math.min(blockRows, rows.rows - start);
+  for (const [start, c] of blockRanges(rows.rows, blockRows)) {
     const block = rows.read(start, c);
     blockMean.fill(0);
     blockM2.fill(0);
@@ -117,9 +119,7 @@ export async function prepareSpace(
   let totalVariance = 0;
   for (const s of std) totalVariance += s * s * source.rows;
   const projected = new Float32Array(source.rows * M);
-  const blockRows = 16_384;
-  for (let start = 0; start < source.rows; start += blockRows) {
-    const count = Math.min(blockRows, source.rows - start);
+  for (const [start, count] of blockRanges(source.rows, BLOCK_ROWS)) {
     projected.set(await backend.gemm(centred.read(start, count), count, d, axes, d, M, false, false), start * M);
   }
   return {
@@ -152,9 +152,7 @@ function materialise(rows: AffineRows): RowSource {
 async function covarianceTimes(rows: RowSource, backend: ComputeBackend, Z: Float32Array, l: number): Promise<Float32Array> {
   const d = rows.cols;
   const out = new Float64Array(d * l);
-  const blockRows = 16_384;
-  for (let start = 0; start < rows.rows; start += blockRows) {
-    const count = Math.min(blockRows, rows.rows - start);
+  for (const [start, count] of blockRanges(rows.rows, BLOCK_ROWS)) {
     const X = rows.read(start, count);
     const XZ = await backend.gemm(X, count, d, Z, d, l, false, false);
     const part = await backend.gemm(X, count, d, XZ, count, l, true, false);
