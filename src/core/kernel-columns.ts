@@ -12,13 +12,16 @@ const MAX_CACHED_VALUES = 2e7;
  */
 export class KernelColumns {
   private readonly cache = new Map<number, Float64Array>();
-  /** The pool as prepared rows, built once: each column then reads it without a per-call copy. */
+  /**
+   * The pool as prepared rows [x, |x|², 1], built once: each column then reads it without a
+   * per-call copy. The plain rows are not kept; a candidate's vector is read from here.
+   */
   private readonly prepared: Float32Array;
 
   constructor(
     private readonly backend: ComputeBackend,
     private readonly kernel: KernelSpec,
-    readonly pool: Float32Array,
+    pool: Float32Array,
     readonly size: number,
     readonly d: number,
   ) {
@@ -30,7 +33,8 @@ export class KernelColumns {
     if (missing.length) {
       if ((this.cache.size + missing.length) * this.size > MAX_CACHED_VALUES) this.cache.clear();
       const points = new Float32Array(missing.length * this.d);
-      missing.forEach((u, j) => points.set(this.pool.subarray(u * this.d, (u + 1) * this.d), j * this.d));
+      const e = this.d + 2;
+      missing.forEach((u, j) => points.set(this.prepared.subarray(u * e, u * e + this.d), j * this.d));
       const block = await this.backend.kernelMatrixPrepared(this.prepared, this.size, points, missing.length, this.d, this.kernel);
       missing.forEach((u, j) => {
         const col = new Float64Array(this.size);

@@ -169,10 +169,9 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
       poolCValues.push(extraC[i]);
     });
   }
-  const pool = rows.gather(poolRows);
   const poolC = Float64Array.from(poolCValues);
   const slotOf = new Map(poolRows.map((r, i) => [r, i]));
-  const columns = new KernelColumns(backend, kernel, pool, poolRows.length, d);
+  const columns = new KernelColumns(backend, kernel, rows.gather(poolRows), poolRows.length, d);
   const refineFrom = (slots: Int32Array, weights: Float64Array) =>
     refineBySwaps(columns, kernel, {
       poolSize: poolRows.length,
