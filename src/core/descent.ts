@@ -79,6 +79,15 @@ export interface DescentContext {
   onProgress?: (p: DescentProgress) => void;
   /** Called after each iteration; return true to stop (cancellation). */
   shouldStop?: () => boolean;
+  /**
+   * Called at the end of an iteration once `checkpointEveryMs` has passed since the last call, with
+   * the live state, the generator state and the trace so far: a caller that stores a copy can
+   * resume the descent exactly (see DescentCheckpoint). Awaited, so a slow store slows the descent.
+   */
+  onCheckpoint?: (state: DescentState, rngState: number[], trace: Array<[number, number]>) => Promise<void> | void;
+  checkpointEveryMs?: number;
+  /** Trace entries of an earlier attempt this descent continues (from a checkpoint). */
+  initialTrace?: Array<[number, number]>;
 }
 
 export function initialDescentState(points: Float32Array, k: number, kind: OptimizerKind, rng: Rng): DescentState {
@@ -114,7 +123,8 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
   const B = Math.min(o.batchSize, n);
   const now = ctx.now ?? (() => performance.now());
   const started = now() - state.elapsedMs;
-  const trace: Array<[number, number]> = [];
+  const trace: Array<[number, number]> = ctx.initialTrace ? [...ctx.initialTrace] : [];
+  let lastCheckpoint = now();
   const traceEvery = Math.max(1, Math.floor(o.maxIterations / 200));
   const lr0 = state.optimizer.kind === 'adam' ? (o.learningRate * ctx.scale) / Math.sqrt(d) : o.learningRate * ctx.scale;
   const emaRate = 2 / (Math.min(o.plateauWindow, 50) + 1);
@@ -201,6 +211,10 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
     if (ctx.shouldStop?.()) {
       stopReason = 'cancelled';
       break;
+    }
+    if (ctx.onCheckpoint && now() - lastCheckpoint >= (ctx.checkpointEveryMs ?? 10_000)) {
+      await ctx.onCheckpoint(state, rng.state(), trace);
+      lastCheckpoint = now();
     }
   }
   return { state, stopReason, trace };

@@ -35,6 +35,11 @@ export class Rng {
     return rng;
   }
 
+  /** Continues the stream from a saved state (as `fromState`, in place). */
+  restore(state: readonly number[]): void {
+    [this.s0, this.s1, this.s2, this.s3] = state.map((v) => v >>> 0);
+  }
+
   state(): number[] {
     return [this.s0, this.s1, this.s2, this.s3];
   }

@@ -1,6 +1,7 @@
 import type { ComputeBackend } from '../compute/backend.js';
 import type { KernelSpec } from '../compute/kernel-spec.js';
 import { CairnError } from '../errors.js';
+import type { DescentCheckpoint } from './checkpoint.js';
 import { coverageStats, type LabelCodes } from './coverage.js';
 import { runDescent, initialDescentState, selfTerm } from './descent.js';
 import { constantTerm, dataTermMeans, discrepancyFromTerms } from './discrepancy.js';
@@ -28,6 +29,14 @@ export interface SelectContext {
   sourceIsScratch?: boolean;
   /** Warm start: k starting points in the selection space (row-major), instead of k-means++ seeds. */
   initialPoints?: Float32Array;
+  /**
+   * Checkpoints of the descent, the long phase: `save` receives one every `everyMs`; `resume`, a
+   * checkpoint saved by an earlier attempt of the same selection (same data, options and seed),
+   * continues from it. The phases before the descent are deterministic and are recomputed.
+   */
+  checkpoint?: { save: (cp: DescentCheckpoint) => Promise<void> | void; everyMs?: number; resume?: DescentCheckpoint | null };
+  /** Receives the nearest representative's rank (1-based) and distance for every row, from the coverage pass. */
+  onAssignments?: (rank: Int32Array, distance: Float32Array) => Promise<void> | void;
 }
 
 /** Approximate share of the work per phase, for the overall progress fraction. */
@@ -101,18 +110,29 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   endPhase('seed');
   checkAbort();
 
-  const state = initialDescentState(points, o.k, o.optimizer, rng);
+  let state = initialDescentState(points, o.k, o.optimizer, rng);
+  const resume = ctx.checkpoint?.resume;
+  let descentRng = rng;
+  if (resume) {
+    if (resume.state.points.length !== o.k * d) throw new CairnError('DIMENSION_MISMATCH', 'The checkpoint does not fit this selection.', { expected: o.k * d, got: resume.state.points.length });
+    state = resume.state;
+    descentRng = Rng.fromState(resume.rng);
+  }
+  const save = ctx.checkpoint?.save;
   const descent = await runDescent(
     {
       rows,
       backend,
       kernel,
-      rng,
+      rng: descentRng,
       scale: s,
       constant: constant.value,
       weightRows: scoring,
       now,
       shouldStop: () => ctx.signal?.aborted ?? false,
+      initialTrace: resume?.trace,
+      checkpointEveryMs: ctx.checkpoint?.everyMs,
+      onCheckpoint: save ? (st, rngState, trace) => save({ version: 1, state: st, rng: rngState, trace }) : undefined,
       onProgress: (p) => {
         const rate = p.iteration > 0 ? p.elapsedMs / p.iteration : 0;
         const byIterations = (p.maxIterations - p.iteration) * rate;
@@ -136,6 +156,8 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
     },
   );
   checkAbort();
+  // The rest of the selection draws from the generator where the descent left it.
+  if (descentRng !== rng) rng.restore(descentRng.state());
   const descentWeights = o.weights === 'optimized' ? state.weights : uniform;
   const descentD2 = await stageD2(state.points, descentWeights);
   endPhase('descent');
@@ -255,6 +277,10 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   });
   const rankOf = new Int32Array(o.k);
   order.forEach((j, rank) => (rankOf[j] = rank + 1));
+  if (ctx.onAssignments) {
+    const rank = Int32Array.from(cov.assignment, (j) => rankOf[j]);
+    await ctx.onAssignments(rank, cov.distance);
+  }
   progress('done', 1);
 
   return {

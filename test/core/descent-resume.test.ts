@@ -1,7 +1,9 @@
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import type { ComputeBackend } from '../../src/compute/backend.js';
 import { initialDescentState, runDescent, type DescentOptions, type DescentState } from '../../src/core/descent.js';
+import { decodeCheckpoint, encodeCheckpoint } from '../../src/core/checkpoint.js';
 import { Rng } from '../../src/core/random.js';
+import { select } from '../../src/core/select.js';
 import { DenseRows } from '../../src/core/rows.js';
 import { defaultBackend } from '../helpers/backends.js';
 
@@ -62,5 +64,46 @@ describe('descent checkpoints', () => {
     expect(resumed.state.iteration).toBe(120);
     expect(Array.from(resumed.state.points)).toEqual(Array.from(straight.state.points));
     expect(Array.from(resumed.state.weights)).toEqual(Array.from(straight.state.weights));
+  });
+});
+
+describe('selection checkpoints', () => {
+  const rng = new Rng(21);
+  const n = 3000;
+  const d = 4;
+  const data = Float32Array.from({ length: n * d }, () => rng.normal());
+  const options = { k: 7, seed: 5, maxIterations: 160, weights: 'optimized' as const };
+
+  it('a selection resumed from a checkpoint read back from its JSON text returns the uninterrupted result', async () => {
+    const straight = await select(new DenseRows(Float32Array.from(data), n, d), options, { backend });
+
+    const saved: string[] = [];
+    let calls = 0;
+    await select(new DenseRows(Float32Array.from(data), n, d), options, {
+      backend,
+      now: () => calls++,
+      // One checkpoint per iteration (each `now()` call advances the clock by at least 1 ms).
+      checkpoint: { everyMs: 1, save: (cp) => void saved.push(encodeCheckpoint(cp)) },
+    });
+    expect(saved.length).toBeGreaterThan(50);
+    const middle = decodeCheckpoint(saved[Math.floor(saved.length / 2)], options.k, d);
+    expect(middle).not.toBeNull();
+    expect(middle!.state.iteration).toBeGreaterThan(10);
+    expect(middle!.state.iteration).toBeLessThan(150);
+
+    const resumed = await select(new DenseRows(Float32Array.from(data), n, d), options, { backend, checkpoint: { save: () => undefined, resume: middle } });
+    expect(resumed.representatives.map((r) => r.index)).toEqual(straight.representatives.map((r) => r.index));
+    expect(resumed.discrepancy.value).toBe(straight.discrepancy.value);
+    expect(resumed.trace.iterations).toBe(straight.trace.iterations);
+    expect(resumed.trace.loss).toEqual(straight.trace.loss);
+  });
+
+  it('a damaged or mismatched checkpoint text decodes to null, so the descent starts afresh', () => {
+    expect(decodeCheckpoint('{"version":1,"state":', 7, d)).toBeNull();
+    expect(decodeCheckpoint(JSON.stringify({ version: 2 }), 7, d)).toBeNull();
+    const state = initialDescentState(new Float32Array(7 * d), 7, 'adam', new Rng(1));
+    const text = encodeCheckpoint({ version: 1, state, rng: [1, 2, 3, 4], trace: [] });
+    expect(decodeCheckpoint(text, 7, d)).not.toBeNull();
+    expect(decodeCheckpoint(text, 8, d)).toBeNull();
   });
 });
