@@ -62,6 +62,20 @@ export const ERROR_CATALOGUE = {
   ARCHIVE_BAD_MANIFEST: { status: 422, message: 'The labels.csv manifest in the archive cannot be used.' },
   IMAGE_TOO_MANY_PIXELS: { status: 413, message: 'An image has more pixels than the limit allows.' },
   IMAGE_UNDECODABLE: { status: 422, message: 'An image cannot be decoded.' },
+  // --- service ---
+  UNAUTHORIZED: { status: 401, message: 'A valid API key is required (Authorization: Bearer <key>).' },
+  RATE_LIMITED: { status: 429, message: 'Too many requests; retry after the time in the Retry-After header.' },
+  ROUTE_NOT_FOUND: { status: 404, message: 'No such route.' },
+  UPLOAD_NO_FILE: { status: 400, message: 'The multipart request has no file part named "file".' },
+  IDEMPOTENCY_KEY_REUSED: { status: 422, message: 'This Idempotency-Key was used before for a different request.' },
+  JOB_NOT_FOUND: { status: 404, message: 'No selection job has this id.' },
+  JOB_NOT_COMPLETED: { status: 409, message: 'The job has not completed, so it has no result yet (see its status).' },
+  JOB_FINISHED: { status: 409, message: 'The job has already finished and cannot be cancelled.' },
+  DATASET_NOT_READY: { status: 409, message: 'The dataset is not ingested (it is queued, running or failed; see its status).' },
+  DATASET_IN_USE: { status: 409, message: 'Selection jobs still queued or running use this dataset; cancel them first.' },
+  DATASET_HAS_NO_IMAGES: { status: 409, message: 'The dataset has no images, so there is no contact sheet.' },
+  SERVICE_SHUTTING_DOWN: { status: 503, message: 'The service is shutting down; retry shortly.' },
+  INTERNAL_ERROR: { status: 500, message: 'An internal error occurred; it has been logged.' },
   // --- compute ---
   COMPUTE_BACKEND_FAILED: { status: 500, message: 'A compute kernel failed to run.' },
 } as const satisfies Record<string, { status: number; message: string }>;

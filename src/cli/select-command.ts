@@ -2,14 +2,14 @@ import { mkdtemp, rm, writeFile } from 'node:fs/promises';
 import { tmpdir } from 'node:os';
 import { basename, join } from 'node:path';
 import { createBackend, type BackendKind } from '../compute/create-backend.js';
-import type { LabelCodes } from '../core/coverage.js';
 import type { SelectOptionsInput } from '../core/options.js';
-import type { SelectionResult } from '../core/result.js';
 import { DenseRows } from '../core/rows.js';
 import { select } from '../core/select.js';
 import { ingestFile, openDataset } from '../data/dataset-store.js';
+import { labelCodes } from '../data/label-codes.js';
 import { defaultReadOptions, type ReadOptionOverrides } from '../data/read-options.js';
 import type { DatasetFormat } from '../data/reader.js';
+import { resultDocument, type ResultDocument } from '../jobs/result-document.js';
 import { ProgressBar } from './progress-bar.js';
 
 export interface SelectCommandInput {
@@ -23,13 +23,7 @@ export interface SelectCommandInput {
 }
 
 /** The CLI's result: the engine's result plus the item ids and where the data came from. */
-export type CliResult = Omit<SelectionResult, 'representatives' | 'coverage'> & {
-  dataset: { source: string; format: string; rows: number; cols: number; sha256: string; droppedNonFinite: number; skippedImages: number };
-  representatives: Array<SelectionResult['representatives'][number] & { id: string; label: string | null }>;
-  coverage: Omit<SelectionResult['coverage'], 'worstCovered'> & {
-    worstCovered: Array<SelectionResult['coverage']['worstCovered'][number] & { id: string }>;
-  };
-};
+export type CliResult = ResultDocument;
 
 /**
  * `cairn select FILE`: ingests the file into a private temporary store (the same readers and
@@ -52,23 +46,7 @@ export async function runSelectCommand(input: SelectCommandInput): Promise<CliRe
     const labels = meta.hasLabels ? labelCodes(items.labels) : null;
     const bar = new ProgressBar(process.stderr, input.progress);
     const result = await select(rows, input.options, { backend, labels, sourceIsScratch: true, onProgress: (p) => bar.update(p) });
-    const out: CliResult = {
-      ...result,
-      dataset: {
-        source: basename(input.file),
-        format: meta.format,
-        rows: meta.rows,
-        cols: meta.cols,
-        sha256: meta.sha256,
-        droppedNonFinite: meta.droppedNonFinite,
-        skippedImages: meta.skippedImages,
-      },
-      representatives: result.representatives.map((r) => ({ ...r, id: items.ids[r.index], label: items.labels[r.index] ?? null })),
-      coverage: {
-        ...result.coverage,
-        worstCovered: result.coverage.worstCovered.map((w) => ({ ...w, id: items.ids[w.index] })),
-      },
-    };
+    const out: CliResult = resultDocument(result, items, meta, { source: basename(input.file) });
     const text = JSON.stringify(out, null, 2) + '\n';
     if (input.out) {
       await writeFile(input.out, text);
@@ -81,26 +59,6 @@ export async function runSelectCommand(input: SelectCommandInput): Promise<CliRe
     await backend.dispose();
     await rm(storeDir, { recursive: true, force: true });
   }
-}
-
-export function labelCodes(labels: readonly (string | null)[]): LabelCodes {
-  const names: string[] = [];
-  const codeOf = new Map<string, number>();
-  const codes = new Int32Array(labels.length);
-  labels.forEach((label, i) => {
-    if (label === null) {
-      codes[i] = -1;
-      return;
-    }
-    let code = codeOf.get(label);
-    if (code === undefined) {
-      code = names.length;
-      names.push(label);
-      codeOf.set(label, code);
-    }
-    codes[i] = code;
-  });
-  return { codes, names };
 }
 
 /** A short human summary for stderr when the JSON went to a file. */

@@ -35,10 +35,11 @@ export function encodeCheckpoint(cp: DescentCheckpoint): string {
 }
 
 /**
- * Parses a checkpoint written by encodeCheckpoint. Returns null for anything else (an older
+ * Parses a checkpoint written by encodeCheckpoint (for k points of d dimensions; any d when
+ * omitted: select() checks the width against its space). Returns null for anything else (an older
  * version, a truncated file): the job then starts its descent afresh, which is always correct.
  */
-export function decodeCheckpoint(text: string, k: number, d: number): DescentCheckpoint | null {
+export function decodeCheckpoint(text: string, k: number, d?: number): DescentCheckpoint | null {
   let raw: { version?: unknown; state?: EncodedState; rng?: unknown; trace?: unknown };
   try {
     raw = JSON.parse(text) as typeof raw;
@@ -47,7 +48,7 @@ export function decodeCheckpoint(text: string, k: number, d: number): DescentChe
   }
   const s = raw.state;
   if (raw.version !== 1 || !s || !Array.isArray(raw.rng) || raw.rng.length !== 4 || !Array.isArray(raw.trace)) return null;
-  if (!Array.isArray(s.points) || s.points.length !== k * d || !Array.isArray(s.weights) || s.weights.length !== k) return null;
+  if (!Array.isArray(s.points) || s.points.length === 0 || s.points.length % k !== 0 || (d !== undefined && s.points.length !== k * d) || !Array.isArray(s.weights) || s.weights.length !== k) return null;
   if (!s.optimizer || !Array.isArray(s.optimizer.m) || !Array.isArray(s.optimizer.v) || !Array.isArray(s.shuffleState)) return null;
   return {
     version: 1,

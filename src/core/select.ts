@@ -113,8 +113,8 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   let state = initialDescentState(points, o.k, o.optimizer, rng);
   const resume = ctx.checkpoint?.resume;
   let descentRng = rng;
-  if (resume) {
-    if (resume.state.points.length !== o.k * d) throw new CairnError('DIMENSION_MISMATCH', 'The checkpoint does not fit this selection.', { expected: o.k * d, got: resume.state.points.length });
+  // A checkpoint of another shape cannot be this selection's; starting afresh is always correct.
+  if (resume && resume.state.points.length === o.k * d && resume.state.weights.length === o.k) {
     state = resume.state;
     descentRng = Rng.fromState(resume.rng);
   }
@@ -130,7 +130,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
       weightRows: scoring,
       now,
       shouldStop: () => ctx.signal?.aborted ?? false,
-      initialTrace: resume?.trace,
+      initialTrace: state === resume?.state ? resume.trace : undefined,
       checkpointEveryMs: ctx.checkpoint?.everyMs,
       onCheckpoint: save ? (st, rngState, trace) => save({ version: 1, state: st, rng: rngState, trace }) : undefined,
       onProgress: (p) => {
@@ -155,6 +155,8 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
       weightsFrom: 0.7,
     },
   );
+  // Stopped early (cancelled, or a worker shutting down): keep the latest state for a later attempt.
+  if (descent.stopReason === 'cancelled' && save) await save({ version: 1, state, rng: descentRng.state(), trace: descent.trace });
   checkAbort();
   // The rest of the selection draws from the generator where the descent left it.
   if (descentRng !== rng) rng.restore(descentRng.state());

@@ -36,6 +36,8 @@ export interface IngestRequest {
    * thousands of tiny files may turn it off.
    */
   durable?: boolean;
+  /** The file's name as the user knows it (an upload's client file name): recorded, and used to recognise the format. Default: the path's base name. */
+  sourceName?: string;
 }
 
 export async function ingestFile(path: string, request: IngestRequest): Promise<StoredDatasetMeta> {
@@ -47,7 +49,8 @@ export async function ingestFile(path: string, request: IngestRequest): Promise<
   if (await exists(finalDir)) throw new CairnError('DATASET_ALREADY_EXISTS', undefined, { datasetId });
 
   const sourceBytes = await checkFileSize(path, options.limits);
-  const format = request.format ?? (await detectFormat(path));
+  const sourceName = request.sourceName ?? basename(path);
+  const format = request.format ?? (await detectFormat(path, sourceName));
   const reader = await loadReader(format);
 
   const tmpDir = await mkdtemp(join(storeDir, `.tmp-${datasetId}-`));
@@ -58,7 +61,7 @@ export async function ingestFile(path: string, request: IngestRequest): Promise<
   try {
     const summary = await reader.read(path, writer, options);
     const sha256 = await hashing.catch((err: unknown) => {
-      throw new CairnError('DATASET_SOURCE_UNREADABLE', undefined, { source: basename(path) }, { cause: err });
+      throw new CairnError('DATASET_SOURCE_UNREADABLE', undefined, { source: sourceName }, { cause: err });
     });
     await writer.close(request.durable ?? true);
     if (writer.rows === 0) throw new CairnError('DATASET_EMPTY');
@@ -70,7 +73,7 @@ export async function ingestFile(path: string, request: IngestRequest): Promise<
       rows: writer.rows,
       cols: writer.cols,
       format,
-      sourceName: basename(path),
+      sourceName,
       sourceBytes,
       sha256,
       hasLabels: summary.hasLabels,

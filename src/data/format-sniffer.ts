@@ -28,14 +28,14 @@ const COMPRESSED_TEXT = /\.(csv|tsv|jsonl|ndjson|npy)\.(gz|bz2|xz|zst)$/i;
  * recognised whatever its name); then the extension; then a look at the text: a first non-blank
  * character `{` means JSON Lines, a first line with tabs but no commas TSV, with commas CSV.
  */
-export async function detectFormat(path: string): Promise<DatasetFormat> {
-  const name = basename(path).toLowerCase();
+export async function detectFormat(path: string, sourceName = basename(path)): Promise<DatasetFormat> {
+  const name = sourceName.toLowerCase();
   const { head, tail } = await readEnds(path);
   const ascii = (bytes: Buffer, start: number, text: string) => bytes.toString('latin1', start, start + text.length) === text;
 
   if (COMPRESSED_TEXT.test(name)) {
     throw new CairnError('UNSUPPORTED_FORMAT', 'Compressed CSV, JSON Lines or .npy files are not supported; decompress them first.', {
-      source: basename(path),
+      source: sourceName,
     });
   }
   if (ascii(head, 0, '\x93NUMPY')) return 'npy';
@@ -52,7 +52,7 @@ export async function detectFormat(path: string): Promise<DatasetFormat> {
   const firstLine = text.split('\n', 1)[0];
   if (firstLine.includes('\t') && !firstLine.includes(',')) return 'tsv';
   if (firstLine.includes(',')) return 'csv';
-  throw new CairnError('UNSUPPORTED_FORMAT', undefined, { source: basename(path) });
+  throw new CairnError('UNSUPPORTED_FORMAT', undefined, { source: sourceName });
 }
 
 async function readEnds(path: string): Promise<{ head: Buffer; tail: Buffer }> {

@@ -1,0 +1,210 @@
+import { EventEmitter } from 'node:events';
+import { pathToFileURL } from 'node:url';
+import { Worker } from 'node:worker_threads';
+import type { Logger } from 'pino';
+import { CairnError } from '../errors.js';
+import { entryFile } from './entry-file.js';
+import type { JobQueue, QueueCounts, QueueEvent } from './queue.js';
+import { errorOf } from './task-runner.js';
+import type { TaskStore } from './task-store.js';
+import { isFinal, taskKey, type TaskRef } from './task.js';
+import type { TaskThreadData, TaskThreadMessage } from './task-thread.js';
+
+export interface EmbeddedQueueOptions {
+  store: TaskStore;
+  /** Tasks run at once (one worker thread each). */
+  concurrency: number;
+  maxAttempts: number;
+  computeThreads: number;
+  checkpointEveryMs: number;
+  /** First retry delay; doubles per attempt. Default 1000 ms. */
+  backoffMs?: number;
+  log: Logger;
+}
+
+interface Running {
+  ref: TaskRef;
+  worker: Worker;
+  done: Promise<void>;
+}
+
+/**
+ * The queue when no Redis is configured: tasks run in worker threads of this process, one thread
+ * per running task, and the queue's only state is the tasks' state.json files. So `start()` after
+ * a restart (or a crash) finds every task still queued or running and runs it again; a selection
+ * resumes from its last checkpoint.
+ */
+export class EmbeddedQueue implements JobQueue {
+  readonly mode = 'embedded' as const;
+  private readonly waiting: TaskRef[] = [];
+  private readonly running = new Map<string, Running>();
+  private readonly delayed = new Map<string, NodeJS.Timeout>();
+  private readonly attempts = new Map<string, number>();
+  private readonly events = new EventEmitter();
+  private closing = false;
+
+  constructor(private readonly o: EmbeddedQueueOptions) {
+    this.events.setMaxListeners(0);
+  }
+
+  /** Picks up every task a previous process left queued or running, oldest first. */
+  async start(): Promise<void> {
+    const found: Array<{ ref: TaskRef; createdAt: string; attempt: number }> = [];
+    for (const tenant of await this.o.store.tenants()) {
+      for (const kind of ['dataset', 'job'] as const) {
+        for (const id of await this.o.store.list(tenant, kind)) {
+          const ref = { kind, tenant, id };
+          try {
+            const [state, spec] = await Promise.all([this.o.store.readState(ref), this.o.store.readSpec(ref)]);
+            if (!isFinal(state.status)) found.push({ ref, createdAt: spec.createdAt, attempt: state.attempt });
+          } catch {
+            // A folder being deleted right now: nothing to resume.
+          }
+        }
+      }
+    }
+    found.sort((a, b) => a.createdAt.localeCompare(b.createdAt));
+    for (const f of found) {
+      // A task found running was interrupted by the stop: the same attempt goes on.
+      this.attempts.set(taskKey(f.ref), Math.max(f.attempt - 1, 0));
+      this.waiting.push(f.ref);
+    }
+    if (found.length) this.o.log.info({ tasks: found.length }, 'resuming tasks left by the previous run');
+    this.pump();
+  }
+
+  async enqueue(ref: TaskRef): Promise<void> {
+    const key = taskKey(ref);
+    if (this.closing || this.running.has(key) || this.delayed.has(key) || this.waiting.some((r) => taskKey(r) === key)) return;
+    this.waiting.push(ref);
+    this.pump();
+  }
+
+  async cancel(ref: TaskRef): Promise<void> {
+    const key = taskKey(ref);
+    const at = this.waiting.findIndex((r) => taskKey(r) === key);
+    const timer = this.delayed.get(key);
+    if (timer) {
+      clearTimeout(timer);
+      this.delayed.delete(key);
+    }
+    if (at >= 0 || timer) {
+      if (at >= 0) this.waiting.splice(at, 1);
+      await this.finishUnstarted(ref);
+    }
+    // A running task sees the cancel marker within a fraction of a second.
+  }
+
+  subscribe(listener: (e: QueueEvent) => void): () => void {
+    this.events.on('state', listener);
+    return () => this.events.off('state', listener);
+  }
+
+  async counts(): Promise<QueueCounts> {
+    return { waiting: this.waiting.length + this.delayed.size, active: this.running.size };
+  }
+
+  async ready(): Promise<boolean> {
+    return !this.closing;
+  }
+
+  async close(graceMs: number): Promise<void> {
+    this.closing = true;
+    this.waiting.length = 0;
+    for (const t of this.delayed.values()) clearTimeout(t);
+    this.delayed.clear();
+    const all = Promise.all([...this.running.values()].map((r) => r.done));
+    const timeout = new Promise<'timeout'>((res) => setTimeout(() => res('timeout'), graceMs).unref());
+    if ((await Promise.race([all.then(() => 'done' as const), timeout])) === 'timeout') {
+      for (const r of this.running.values()) r.worker.postMessage('shutdown');
+      // Stopping takes one descent step or one read block; after that, force it.
+      const forced = new Promise<void>((res) => setTimeout(res, 10_000).unref());
+      await Promise.race([all, forced]);
+      await Promise.all([...this.running.values()].map((r) => r.worker.terminate()));
+    }
+  }
+
+  private async finishUnstarted(ref: TaskRef): Promise<void> {
+    try {
+      const state = await this.o.store.readState(ref);
+      const code = ref.kind === 'job' ? 'SELECTION_CANCELLED' : 'DATASET_INGEST_CANCELLED';
+      const next = { ...state, status: 'cancelled' as const, error: errorOf(new CairnError(code)), finishedAt: new Date().toISOString(), updatedAt: new Date().toISOString() };
+      await this.o.store.writeState(ref, next);
+      this.events.emit('state', { ref, state: next });
+    } catch {
+      // Deleted meanwhile.
+    }
+  }
+
+  private pump(): void {
+    while (!this.closing && this.running.size < this.o.concurrency && this.waiting.length) {
+      const ref = this.waiting.shift()!;
+      this.launch(ref);
+    }
+  }
+
+  private launch(ref: TaskRef): void {
+    const key = taskKey(ref);
+    const attempt = (this.attempts.get(key) ?? 0) + 1;
+    this.attempts.set(key, attempt);
+    const entry = entryFile(import.meta.url, 'task-thread');
+    const data: TaskThreadData = {
+      dataDir: this.o.store.dataDir,
+      ref,
+      attempt,
+      maxAttempts: this.o.maxAttempts,
+      computeThreads: this.o.computeThreads,
+      checkpointEveryMs: this.o.checkpointEveryMs,
+      logLevel: this.o.log.level,
+    };
+    const worker = entry.execArgv.length
+      ? // From sources: the tsx loader is registered inside the thread before the entry is imported.
+        new Worker(`import('tsx/esm/api').then((m) => { m.register(); return import(${JSON.stringify(pathToFileURL(entry.path).href)}); })`, { eval: true, workerData: data })
+      : new Worker(entry.path, { workerData: data });
+    let outcome: string | null = null;
+    const done = new Promise<void>((resolve) => {
+      worker.on('message', (m: TaskThreadMessage) => {
+        if (m.type === 'state') this.events.emit('state', { ref, state: m.state });
+        else outcome = m.outcome;
+      });
+      worker.on('error', (err) => this.o.log.error({ task: ref, err }, 'task thread failed'));
+      worker.on('exit', () => {
+        this.running.delete(key);
+        void this.settle(ref, attempt, outcome).finally(() => {
+          resolve();
+          this.pump();
+        });
+      });
+    });
+    this.running.set(key, { ref, worker, done });
+  }
+
+  /** After a thread ends: retry with backoff, or record a thread that died without reporting. */
+  private async settle(ref: TaskRef, attempt: number, outcome: string | null): Promise<void> {
+    const key = taskKey(ref);
+    if (outcome === null) {
+      // The thread died (out of memory, a native crash) before it could record anything.
+      const state = await this.o.store.readState(ref).catch(() => null);
+      if (!state || isFinal(state.status) || this.closing) return;
+      const error = errorOf(new Error('task thread exited'));
+      const last = attempt >= this.o.maxAttempts;
+      const next = { ...state, status: last ? ('failed' as const) : ('queued' as const), error, finishedAt: last ? new Date().toISOString() : null, updatedAt: new Date().toISOString() };
+      await this.o.store.writeState(ref, next).catch(() => undefined);
+      this.events.emit('state', { ref, state: next });
+      outcome = last ? 'failed' : 'retry';
+    }
+    if (outcome === 'retry' && !this.closing) {
+      const delay = (this.o.backoffMs ?? 1000) * 2 ** (attempt - 1);
+      this.delayed.set(
+        key,
+        setTimeout(() => {
+          this.delayed.delete(key);
+          this.waiting.push(ref);
+          this.pump();
+        }, delay),
+      );
+      return;
+    }
+    if (outcome !== 'interrupted') this.attempts.delete(key);
+  }
+}

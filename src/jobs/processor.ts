@@ -1,0 +1,17 @@
+import type { TaskStore } from './task-store.js';
+import type { TaskProgress, TaskRef } from './task.js';
+
+/** What a processor gets for one attempt of one task. */
+export interface ProcessorContext {
+  store: TaskStore;
+  ref: TaskRef;
+  /** Aborted on cancellation or shutdown; the processor stops at its next check. */
+  signal: AbortSignal;
+  onProgress: (p: TaskProgress) => void;
+  /** ORT intra-op threads for this task's kernels (0: every core). */
+  computeThreads: number;
+  checkpointEveryMs: number;
+}
+
+/** Runs one task to completion, writing its outputs into the task folder; throws on failure. */
+export type Processor = (ctx: ProcessorContext) => Promise<void>;

@@ -1,0 +1,37 @@
+import type { SelectionResult } from '../core/result.js';
+import type { StoredDatasetMeta } from '../data/stored-dataset.js';
+
+/** A selection result as users receive it (CLI output, the API's result): the engine's result with item ids and the dataset's description. */
+export type ResultDocument = Omit<SelectionResult, 'representatives' | 'coverage'> & {
+  dataset: { id?: string; source: string; format: string; rows: number; cols: number; sha256: string; droppedNonFinite: number; skippedImages: number };
+  representatives: Array<SelectionResult['representatives'][number] & { id: string; label: string | null }>;
+  coverage: Omit<SelectionResult['coverage'], 'worstCovered'> & {
+    worstCovered: Array<SelectionResult['coverage']['worstCovered'][number] & { id: string }>;
+  };
+};
+
+export function resultDocument(
+  result: SelectionResult,
+  items: { ids: string[]; labels: (string | null)[] },
+  meta: StoredDatasetMeta,
+  dataset: { id?: string; source: string },
+): ResultDocument {
+  return {
+    ...result,
+    dataset: {
+      ...(dataset.id ? { id: dataset.id } : {}),
+      source: dataset.source,
+      format: meta.format,
+      rows: meta.rows,
+      cols: meta.cols,
+      sha256: meta.sha256,
+      droppedNonFinite: meta.droppedNonFinite,
+      skippedImages: meta.skippedImages,
+    },
+    representatives: result.representatives.map((r) => ({ ...r, id: items.ids[r.index], label: items.labels[r.index] ?? null })),
+    coverage: {
+      ...result.coverage,
+      worstCovered: result.coverage.worstCovered.map((w) => ({ ...w, id: items.ids[w.index] })),
+    },
+  };
+}

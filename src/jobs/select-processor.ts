@@ -1,0 +1,58 @@
+import { createBackend } from '../compute/create-backend.js';
+import { decodeCheckpoint, encodeCheckpoint } from '../core/checkpoint.js';
+import { parseSelectOptions } from '../core/options.js';
+import { DenseRows } from '../core/rows.js';
+import { select } from '../core/select.js';
+import { openDataset } from '../data/dataset-store.js';
+import { labelCodes } from '../data/label-codes.js';
+import { encodeAssignments } from './assignments.js';
+import type { ProcessorContext } from './processor.js';
+import { resultDocument } from './result-document.js';
+import type { SelectSpec } from './task.js';
+
+/**
+ * Runs one selection on a stored dataset. Every `checkpointEveryMs` the descent's state goes to
+ * checkpoint.json; a later attempt (after a crash, a killed worker or a shutdown) continues from it
+ * and returns what an uninterrupted run would have. Writes result.json and assignments.bin.
+ */
+export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
+  const { store, ref } = ctx;
+  const spec = await store.readSpec<SelectSpec>(ref);
+  const options = parseSelectOptions(spec.options);
+  const dataset = openDataset(store.storeDir(ref.tenant), spec.datasetId);
+  const { meta } = dataset;
+  const items = await dataset.readItems();
+  const rows = new DenseRows(dataset.loadMatrix(), meta.rows, meta.cols);
+  const labels = meta.hasLabels ? labelCodes(items.labels) : null;
+
+  const saved = await store.readOptional(ref, 'checkpoint.json');
+  // The checkpoint's points live in the selection space, whose width depends on the space option.
+  const resume = saved ? decodeCheckpoint(saved, options.k) : null;
+
+  const backend = await createBackend('onnx', ctx.computeThreads > 0 ? { threads: ctx.computeThreads } : {});
+  try {
+    let assignments: Buffer | null = null;
+    const result = await select(rows, spec.options, {
+      backend,
+      labels,
+      signal: ctx.signal,
+      sourceIsScratch: true,
+      onProgress: (p) => ctx.onProgress(p),
+      checkpoint: {
+        everyMs: ctx.checkpointEveryMs,
+        resume,
+        save: (cp) => store.writeAtomic(ref, 'checkpoint.json', encodeCheckpoint(cp)),
+      },
+      onAssignments: (rank, distance) => {
+        assignments = encodeAssignments(rank, distance);
+      },
+    });
+    if (!assignments) throw new Error('the selection reported no assignments');
+    await store.writeAtomic(ref, 'assignments.bin', assignments);
+    const doc = resultDocument(result, items, meta, { id: spec.datasetId, source: meta.sourceName });
+    await store.writeAtomic(ref, 'result.json', JSON.stringify(doc) + '\n');
+    await store.removeFile(ref, 'checkpoint.json');
+  } finally {
+    await backend.dispose();
+  }
+}

@@ -1,0 +1,43 @@
+import { parentPort, workerData } from 'node:worker_threads';
+import pino from 'pino';
+import { runAttempt } from './task-runner.js';
+import { TaskStore } from './task-store.js';
+import type { TaskRef, TaskState } from './task.js';
+
+/**
+ * Entry of the embedded queue's worker threads: runs one attempt of one task off the API's event
+ * loop and reports each state to the queue. A 'shutdown' message stops the task at its next check
+ * (it stays queued and resumes from its checkpoint on the next start).
+ */
+export interface TaskThreadData {
+  dataDir: string;
+  ref: TaskRef;
+  attempt: number;
+  maxAttempts: number;
+  computeThreads: number;
+  checkpointEveryMs: number;
+  logLevel: string;
+}
+
+export type TaskThreadMessage = { type: 'state'; state: TaskState } | { type: 'done'; outcome: string };
+
+const data = workerData as TaskThreadData;
+const port = parentPort!;
+const shutdown = new AbortController();
+port.on('message', (m: unknown) => {
+  if (m === 'shutdown') shutdown.abort();
+});
+const log = pino({ level: data.logLevel, base: { thread: 'task' } });
+const result = await runAttempt({
+  store: new TaskStore(data.dataDir),
+  ref: data.ref,
+  attempt: data.attempt,
+  maxAttempts: data.maxAttempts,
+  shutdown: shutdown.signal,
+  computeThreads: data.computeThreads,
+  checkpointEveryMs: data.checkpointEveryMs,
+  log,
+  onState: (state) => port.postMessage({ type: 'state', state } satisfies TaskThreadMessage),
+});
+port.postMessage({ type: 'done', outcome: result.outcome } satisfies TaskThreadMessage);
+port.close();

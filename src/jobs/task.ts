@@ -1,0 +1,88 @@
+import type { SelectOptionsInput } from '../core/options.js';
+import type { SelectPhase } from '../core/result.js';
+import type { ReadOptionOverrides } from '../data/read-options.js';
+import type { DatasetFormat } from '../data/reader.js';
+import type { ErrorCode } from '../errors.js';
+
+/**
+ * A task is one unit of queued work: ingesting an uploaded dataset, or running a selection. Each
+ * lives in its own folder (see TaskStore) holding spec.json (written once, when it is created),
+ * state.json (written by whoever runs it) and its outputs, so the API, the embedded queue and any
+ * number of workers sharing the data folder agree on it without a database.
+ */
+export type TaskKind = 'dataset' | 'job';
+
+export interface TaskRef {
+  kind: TaskKind;
+  tenant: string;
+  id: string;
+}
+
+export interface IngestSpec {
+  kind: 'dataset';
+  /** The client's file name (shown back; never used as a path). */
+  sourceName: string;
+  sourceBytes: number;
+  format?: DatasetFormat;
+  read: ReadOptionOverrides;
+  name?: string;
+  createdAt: string;
+}
+
+export interface SelectSpec {
+  kind: 'job';
+  datasetId: string;
+  options: SelectOptionsInput;
+  name?: string;
+  createdAt: string;
+}
+
+export type TaskSpec = IngestSpec | SelectSpec;
+
+export type TaskStatus = 'queued' | 'running' | 'completed' | 'failed' | 'cancelled';
+
+export interface TaskProgress {
+  phase: SelectPhase | 'queued' | 'ingest';
+  /** Overall fraction done, 0..1 (approximate). */
+  fraction: number;
+  iteration?: number;
+  maxIterations?: number;
+  /** Running estimate of D² during the descent. */
+  loss?: number;
+  etaSeconds?: number;
+}
+
+export interface TaskError {
+  code: ErrorCode;
+  message: string;
+  details: Record<string, unknown>;
+}
+
+export interface TaskState {
+  status: TaskStatus;
+  /** 1-based attempt that wrote this state (0 while never started). */
+  attempt: number;
+  progress: TaskProgress;
+  /** The error that ended the task, or the last transient one while it waits for a retry. */
+  error: TaskError | null;
+  startedAt: string | null;
+  finishedAt: string | null;
+  updatedAt: string;
+}
+
+export const FINAL_STATUSES: readonly TaskStatus[] = ['completed', 'failed', 'cancelled'];
+
+export function isFinal(status: TaskStatus): boolean {
+  return FINAL_STATUSES.includes(status);
+}
+
+/** Queue job names: `<kind>:<tenant>:<id>` (ids and tenants contain no ':'). */
+export function taskKey(ref: TaskRef): string {
+  return `${ref.kind}:${ref.tenant}:${ref.id}`;
+}
+
+export function parseTaskKey(key: string): TaskRef {
+  const [kind, tenant, id] = key.split(':');
+  if ((kind !== 'dataset' && kind !== 'job') || !tenant || !id) throw new Error(`bad task key ${key}`);
+  return { kind, tenant, id };
+}
