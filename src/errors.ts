@@ -66,6 +66,8 @@ export const ERROR_CATALOGUE = {
   UNAUTHORIZED: { status: 401, message: 'A valid API key is required (Authorization: Bearer <key>).' },
   RATE_LIMITED: { status: 429, message: 'Too many requests; retry after the time in the Retry-After header.' },
   ROUTE_NOT_FOUND: { status: 404, message: 'No such route.' },
+  UNSUPPORTED_MEDIA_TYPE: { status: 415, message: 'The request body has a content type this route does not accept.' },
+  REQUEST_TOO_LARGE: { status: 413, message: 'The request body is larger than this route accepts.' },
   UPLOAD_NO_FILE: { status: 400, message: 'The multipart request has no file part named "file".' },
   IDEMPOTENCY_KEY_REUSED: { status: 422, message: 'This Idempotency-Key was used before for a different request.' },
   JOB_NOT_FOUND: { status: 404, message: 'No selection job has this id.' },

@@ -77,5 +77,30 @@ export function buildProgram(): Command {
       });
     });
 
+  program
+    .command('serve')
+    .description('Run the HTTP API (configured by CAIRN_* environment variables; see README). Without REDIS_URL it also runs the jobs, in worker threads.')
+    .action(async () => {
+      const { runServe } = await import('./service-commands.js');
+      await runServe();
+    });
+
+  program
+    .command('worker')
+    .description('Run queued ingestion and selection jobs from Redis (REDIS_URL); start as many as you like, on any machine sharing CAIRN_DATA_DIR.')
+    .action(async () => {
+      const { runWorker } = await import('./service-commands.js');
+      await runWorker();
+    });
+
+  program
+    .command('keygen')
+    .description('Print a new API key for a tenant and the CAIRN_API_KEYS entry (its hash) for the server.')
+    .requiredOption('--tenant <name>', 'tenant the key belongs to: lowercase letters, digits, _ and -')
+    .action(async (flags: { tenant: string }) => {
+      const { runKeygen } = await import('./service-commands.js');
+      runKeygen(flags.tenant);
+    });
+
   return program;
 }

@@ -2,7 +2,7 @@ import { EventEmitter } from 'node:events';
 import { pathToFileURL } from 'node:url';
 import { Worker } from 'node:worker_threads';
 import type { Logger } from 'pino';
-import { CairnError } from '../errors.js';
+import { cancelUnstarted } from './cancel-unstarted.js';
 import { entryFile } from './entry-file.js';
 import type { JobQueue, QueueCounts, QueueEvent } from './queue.js';
 import { errorOf } from './task-runner.js';
@@ -125,15 +125,8 @@ export class EmbeddedQueue implements JobQueue {
   }
 
   private async finishUnstarted(ref: TaskRef): Promise<void> {
-    try {
-      const state = await this.o.store.readState(ref);
-      const code = ref.kind === 'job' ? 'SELECTION_CANCELLED' : 'DATASET_INGEST_CANCELLED';
-      const next = { ...state, status: 'cancelled' as const, error: errorOf(new CairnError(code)), finishedAt: new Date().toISOString(), updatedAt: new Date().toISOString() };
-      await this.o.store.writeState(ref, next);
-      this.events.emit('state', { ref, state: next });
-    } catch {
-      // Deleted meanwhile.
-    }
+    const state = await cancelUnstarted(this.o.store, ref);
+    if (state) this.events.emit('state', { ref, state });
   }
 
   private pump(): void {

@@ -35,3 +35,16 @@ export function resultDocument(
     },
   };
 }
+
+/** The few numbers a dashboard lists per job (summary.json, kept beside the large result). */
+export interface ResultSummary {
+  k: number;
+  d2: number;
+  ratioToRandom: number | null;
+  seconds: number;
+}
+
+export function resultSummary(doc: ResultDocument): ResultSummary {
+  const seconds = Object.values(doc.trace.seconds).reduce((a, b) => a + b, 0);
+  return { k: doc.k, d2: doc.discrepancy.value, ratioToRandom: doc.discrepancy.ratioToRandom, seconds };
+}

@@ -7,7 +7,7 @@ import { openDataset } from '../data/dataset-store.js';
 import { labelCodes } from '../data/label-codes.js';
 import { encodeAssignments } from './assignments.js';
 import type { ProcessorContext } from './processor.js';
-import { resultDocument } from './result-document.js';
+import { resultDocument, resultSummary } from './result-document.js';
 import type { SelectSpec } from './task.js';
 
 /**
@@ -50,6 +50,7 @@ export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
     if (!assignments) throw new Error('the selection reported no assignments');
     await store.writeAtomic(ref, 'assignments.bin', assignments);
     const doc = resultDocument(result, items, meta, { id: spec.datasetId, source: meta.sourceName });
+    await store.writeAtomic(ref, 'summary.json', JSON.stringify(resultSummary(doc)) + '\n');
     await store.writeAtomic(ref, 'result.json', JSON.stringify(doc) + '\n');
     await store.removeFile(ref, 'checkpoint.json');
   } finally {

@@ -1,3 +1,4 @@
+import { hostname } from 'node:os';
 import type { Logger } from 'pino';
 import { CairnError } from '../errors.js';
 import { ingestProcessor } from './ingest-processor.js';
@@ -84,7 +85,7 @@ export async function runAttempt(o: AttemptOptions): Promise<{ outcome: AttemptO
       cancelled = true;
       throw new CairnError(ref.kind === 'job' ? 'SELECTION_CANCELLED' : 'DATASET_INGEST_CANCELLED');
     }
-    await write({ ...state, status: 'running', attempt: o.attempt, startedAt: state.startedAt ?? now(), updatedAt: now() });
+    await write({ ...state, status: 'running', attempt: o.attempt, startedAt: state.startedAt ?? now(), updatedAt: now(), runner: { host: hostname(), pid: process.pid } });
     o.onState?.(state);
     o.log?.info({ task: ref, attempt: o.attempt }, 'task started');
     await PROCESSORS[ref.kind]({ store, ref, signal: stop.signal, onProgress, computeThreads: o.computeThreads, checkpointEveryMs: o.checkpointEveryMs });

@@ -11,7 +11,7 @@ import type { TaskKind, TaskRef, TaskSpec, TaskState } from './task.js';
  *   tenants/<tenant>/store/<datasetId>/   stored datasets (matrix.f32, items.jsonl, thumbs/, meta.json)
  *   tenants/<tenant>/dataset/<id>/        ingestion task: spec.json, state.json, source (the upload, until ingested)
  *   tenants/<tenant>/job/<id>/            selection task: spec.json, state.json, checkpoint.json,
- *                                         result.json, assignments.bin, cancel (a marker)
+ *                                         result.json, summary.json, assignments.bin, cancel (a marker)
  *   idempotency/<tenant>/<hash>.json      first answers to Idempotency-Key requests
  *
  * Each file has one writer: spec.json and `cancel` the API, state.json and the outputs the task's
@@ -190,7 +190,7 @@ export class TaskStore {
   }
 }
 
-export type TaskFile = 'spec.json' | 'state.json' | 'checkpoint.json' | 'result.json' | 'assignments.bin' | 'cancel' | 'source';
+export type TaskFile = 'spec.json' | 'state.json' | 'checkpoint.json' | 'result.json' | 'summary.json' | 'assignments.bin' | 'cancel' | 'source';
 
 export function notFound(ref: TaskRef): CairnError {
   return ref.kind === 'dataset' ? new CairnError('DATASET_NOT_FOUND', undefined, { datasetId: ref.id }) : new CairnError('JOB_NOT_FOUND', undefined, { jobId: ref.id });

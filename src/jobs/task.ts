@@ -68,6 +68,8 @@ export interface TaskState {
   startedAt: string | null;
   finishedAt: string | null;
   updatedAt: string;
+  /** Host and process id that ran (or runs) the latest attempt, for operators. */
+  runner?: { host: string; pid: number };
 }
 
 export const FINAL_STATUSES: readonly TaskStatus[] = ['completed', 'failed', 'cancelled'];

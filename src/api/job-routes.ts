@@ -1,0 +1,160 @@
+import { createReadStream } from 'node:fs';
+import { readFile } from 'node:fs/promises';
+import { join } from 'node:path';
+import { Readable } from 'node:stream';
+import { z } from 'zod';
+import { CairnError } from '../errors.js';
+import { assignmentRows } from '../jobs/assignment-export.js';
+import type { ResultDocument } from '../jobs/result-document.js';
+import type { SelectSpec, TaskRef } from '../jobs/task.js';
+import { isFinal } from '../jobs/task.js';
+import { renderContactSheet } from '../report/contact-sheet.js';
+import type { App, AppDeps } from './app.js';
+import { idempotencyKey } from './dataset-routes.js';
+import type { EventStreams } from './event-streams.js';
+import { fingerprintOf } from './idempotency.js';
+import { datasetView, jobView } from './resources.js';
+import { assignmentsQuery, contactSheetQuery, createJobBody, errorBody, idParams, jobListQuery, jobResource } from './schemas.js';
+import { newId } from './task-ids.js';
+
+const errors = { 400: errorBody, 401: errorBody, 404: errorBody, 409: errorBody, 422: errorBody, 429: errorBody };
+
+export function jobRoutes(app: App, deps: AppDeps, streams: EventStreams): void {
+  const { store, queue, idempotency } = deps;
+  const ref = (tenant: string, id: string): TaskRef => ({ kind: 'job', tenant, id });
+  const existing = async (tenant: string, id: string): Promise<TaskRef> => {
+    const r = ref(tenant, id);
+    if (!(await store.exists(r))) throw new CairnError('JOB_NOT_FOUND', undefined, { jobId: id });
+    return r;
+  };
+  const completed = async (tenant: string, id: string): Promise<{ r: TaskRef; spec: SelectSpec }> => {
+    const r = await existing(tenant, id);
+    const state = await store.readState(r);
+    if (state.status !== 'completed') throw new CairnError('JOB_NOT_COMPLETED', `The job is ${state.status}.`, { jobId: id, status: state.status });
+    return { r, spec: await store.readSpec<SelectSpec>(r) };
+  };
+  const readResult = async (r: TaskRef): Promise<ResultDocument> => JSON.parse(await store.readText(r, 'result.json')) as ResultDocument;
+
+  app.post(
+    '/v1/jobs',
+    {
+      schema: {
+        summary: 'Create a selection job',
+        description: 'Queues a selection of k representatives of a dataset whose ingestion has completed. Every option has a documented default; the job stores the options with defaults filled in.',
+        tags: ['jobs'],
+        body: createJobBody,
+        response: { 202: jobResource, ...errors },
+      },
+    },
+    async (req, reply) => {
+      const tenant = req.tenant;
+      const { datasetId, name, ...options } = req.body;
+      const create = async () => {
+        const dsRef: TaskRef = { kind: 'dataset', tenant, id: datasetId };
+        if (!(await store.exists(dsRef))) throw new CairnError('DATASET_NOT_FOUND', undefined, { datasetId });
+        const ds = await datasetView(store, dsRef);
+        if (ds.status !== 'completed' || ds.rows === null) throw new CairnError('DATASET_NOT_READY', `The dataset is ${ds.status}.`, { datasetId, status: ds.status });
+        if (options.k > ds.rows) throw new CairnError('K_TOO_LARGE', `k = ${options.k} but the dataset has ${ds.rows} rows.`, { k: options.k, rows: ds.rows });
+        const pca = /^pca:(\d+)$/.exec(options.space);
+        if (pca && Number(pca[1]) > ds.cols!) throw new CairnError('INVALID_ARGUMENT', `space pca:${pca[1]} asks for more axes than the dataset's ${ds.cols} columns.`, { name: 'space', value: options.space });
+        const r = ref(tenant, newId('job'));
+        const spec: SelectSpec = { kind: 'job', datasetId, options, name, createdAt: new Date().toISOString() };
+        await store.create(r, spec);
+        await queue.enqueue(r);
+        return { status: 202, body: await jobView(store, r) };
+      };
+      const key = idempotencyKey(req.headers['idempotency-key']);
+      const answer = key ? await idempotency.run(tenant, key, fingerprintOf(req.body), create) : await create();
+      return reply.status(answer.status).send(answer.body as z.infer<typeof jobResource>);
+    },
+  );
+
+  app.get('/v1/jobs', { schema: { summary: 'List selection jobs', tags: ['jobs'], querystring: jobListQuery, response: { 200: z.object({ jobs: z.array(jobResource) }), ...errors } } }, async (req) => {
+    const q = req.query;
+    const views = await Promise.all((await store.list(req.tenant, 'job')).map((id) => jobView(store, ref(req.tenant, id)).catch(() => null)));
+    const jobs = views
+      .filter((v): v is NonNullable<typeof v> => v !== null && (!q.status || v.status === q.status) && (!q.datasetId || v.datasetId === q.datasetId))
+      .sort((a, b) => b.createdAt.localeCompare(a.createdAt))
+      .slice(0, q.limit);
+    return { jobs };
+  });
+
+  app.get('/v1/jobs/:id', { schema: { summary: 'Get a job (status and progress)', tags: ['jobs'], params: idParams, response: { 200: jobResource, ...errors } } }, async (req) => {
+    return jobView(store, await existing(req.tenant, req.params.id));
+  });
+
+  app.get(
+    '/v1/jobs/:id/events',
+    { schema: { summary: 'Follow a job (Server-Sent Events)', description: '`state` events carry the job resource (status, progress with phase, iteration, loss estimate and ETA); an `end` event follows the final state, then the stream closes.', tags: ['jobs'], params: idParams, produces: ['text/event-stream'] } },
+    async (req, reply) => {
+      const r = await existing(req.tenant, req.params.id);
+      await streams.stream(req, reply, r, () => jobView(store, r));
+    },
+  );
+
+  app.post('/v1/jobs/:id/cancel', { schema: { summary: 'Cancel a job', description: 'A queued job is cancelled at once; a running one stops within about a second. Answers the job as it is now.', tags: ['jobs'], params: idParams, response: { 202: jobResource, ...errors } } }, async (req, reply) => {
+    const r = await existing(req.tenant, req.params.id);
+    const state = await store.readState(r);
+    if (isFinal(state.status)) throw new CairnError('JOB_FINISHED', `The job is ${state.status}.`, { jobId: r.id, status: state.status });
+    await store.requestCancel(r);
+    await queue.cancel(r);
+    return reply.status(202).send(await jobView(store, r));
+  });
+
+  app.delete('/v1/jobs/:id', { schema: { summary: 'Delete a job', description: 'Cancels it if needed and deletes its record, checkpoint, result and assignments.', tags: ['jobs'], params: idParams, response: { 204: z.null(), ...errors } } }, async (req, reply) => {
+    const r = await existing(req.tenant, req.params.id);
+    const state = await store.readState(r);
+    if (!isFinal(state.status)) {
+      await store.requestCancel(r);
+      await queue.cancel(r);
+    }
+    await store.remove(r);
+    return reply.status(204).send(null);
+  });
+
+  app.get(
+    '/v1/jobs/:id/result',
+    { schema: { summary: 'The result of a completed job', description: 'Representatives in rank order (id, index, weight, share, radius, label histogram), coverage, D² against random k-subsets, the prefix curve and the trace; documented in docs/result.md.', tags: ['jobs'], params: idParams, response: { 200: z.record(z.string(), z.unknown()), ...errors } } },
+    async (req, reply) => {
+      const { r } = await completed(req.tenant, req.params.id);
+      // Sent as stored: the document can be large and was validated when written.
+      return reply.type('application/json').serializer((x: unknown) => x as string).send(createReadStream(store.file(r, 'result.json')) as never);
+    },
+  );
+
+  app.get(
+    '/v1/jobs/:id/assignments',
+    { schema: { summary: 'Every item’s nearest representative (streamed)', description: 'One record per item in dataset order: id, index, rank and id of its nearest representative, and the distance in the selection space. ndjson (default) or csv.', tags: ['jobs'], params: idParams, querystring: assignmentsQuery, produces: ['application/x-ndjson', 'text/csv'] } },
+    async (req, reply) => {
+      const { r, spec } = await completed(req.tenant, req.params.id);
+      const result = await readResult(r);
+      const repIds = result.representatives.map((p) => p.id);
+      const dsDir = join(store.storeDir(req.tenant), spec.datasetId);
+      await readFile(join(dsDir, 'meta.json')).catch(() => {
+        throw new CairnError('DATASET_NOT_FOUND', 'The job’s dataset has been deleted, so its item ids are gone.', { datasetId: spec.datasetId });
+      });
+      const format = req.query.format;
+      const body = Readable.from(assignmentRows(join(dsDir, 'items.jsonl'), store.file(r, 'assignments.bin'), result.rows, repIds, format));
+      return reply
+        .type(format === 'csv' ? 'text/csv; charset=utf-8' : 'application/x-ndjson')
+        .header('content-disposition', `attachment; filename="${r.id}-assignments.${format === 'csv' ? 'csv' : 'ndjson'}"`)
+        .send(body);
+    },
+  );
+
+  app.get(
+    '/v1/jobs/:id/contact-sheet.png',
+    { schema: { summary: 'Contact sheet of the representatives (image datasets)', description: 'A PNG grid of the first `limit` representatives by rank, captioned with rank and weight.', tags: ['jobs'], params: idParams, querystring: contactSheetQuery, produces: ['image/png'] } },
+    async (req, reply) => {
+      const { r, spec } = await completed(req.tenant, req.params.id);
+      const thumbs = join(store.storeDir(req.tenant), spec.datasetId, 'thumbs');
+      const ds = await datasetView(store, { kind: 'dataset', tenant: req.tenant, id: spec.datasetId }).catch(() => null);
+      if (!ds || ds.hasImages === null) throw new CairnError('DATASET_NOT_FOUND', 'The job’s dataset has been deleted.', { datasetId: spec.datasetId });
+      if (!ds.hasImages) throw new CairnError('DATASET_HAS_NO_IMAGES', undefined, { datasetId: spec.datasetId });
+      const reps = (await readResult(r)).representatives.slice(0, req.query.limit);
+      const cells = await Promise.all(reps.map(async (p) => ({ png: await readFile(join(thumbs, `${p.index}.png`)).catch(() => null), rank: p.rank, weight: p.weight })));
+      const png = await renderContactSheet(cells, { columns: req.query.columns, cellSize: req.query.cellSize });
+      return reply.type('image/png').header('cache-control', 'private, max-age=3600').send(png);
+    },
+  );
+}

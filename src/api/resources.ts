@@ -1,0 +1,70 @@
+import { existsSync, readFileSync } from 'node:fs';
+import { join } from 'node:path';
+import type { z } from 'zod';
+import type { StoredDatasetMeta } from '../data/stored-dataset.js';
+import type { TaskStore } from '../jobs/task-store.js';
+import type { IngestSpec, SelectSpec, TaskRef, TaskState } from '../jobs/task.js';
+import type { datasetResource, jobResource } from './schemas.js';
+
+export type DatasetResource = z.infer<typeof datasetResource>;
+export type JobResource = z.infer<typeof jobResource>;
+
+/** The dataset as the API shows it: its ingestion task's state plus, once stored, its description. */
+export async function datasetView(store: TaskStore, ref: TaskRef): Promise<DatasetResource> {
+  const [spec, state] = await Promise.all([store.readSpec<IngestSpec>(ref), store.readState(ref)]);
+  let meta: StoredDatasetMeta | null = null;
+  let hasImages: boolean | null = null;
+  if (state.status === 'completed') {
+    const dir = join(store.storeDir(ref.tenant), ref.id);
+    try {
+      meta = JSON.parse(readFileSync(join(dir, 'meta.json'), 'utf8')) as StoredDatasetMeta;
+      hasImages = existsSync(join(dir, 'thumbs'));
+    } catch {
+      meta = null;
+    }
+  }
+  return {
+    id: ref.id,
+    name: spec.name ?? null,
+    ...common(state),
+    source: { name: spec.sourceName, bytes: spec.sourceBytes },
+    rows: meta?.rows ?? null,
+    cols: meta?.cols ?? null,
+    format: meta?.format ?? spec.format ?? null,
+    hasLabels: meta?.hasLabels ?? null,
+    hasImages,
+    sha256: meta?.sha256 ?? null,
+    droppedNonFinite: meta?.droppedNonFinite ?? null,
+    skippedImages: meta?.skippedImages ?? null,
+    createdAt: spec.createdAt,
+  };
+}
+
+export async function jobView(store: TaskStore, ref: TaskRef): Promise<JobResource> {
+  const [spec, state] = await Promise.all([store.readSpec<SelectSpec>(ref), store.readState(ref)]);
+  let summary: JobResource['summary'] = null;
+  if (state.status === 'completed') {
+    const text = await store.readOptional(ref, 'summary.json');
+    summary = text ? (JSON.parse(text) as JobResource['summary']) : null;
+  }
+  return {
+    id: ref.id,
+    name: spec.name ?? null,
+    datasetId: spec.datasetId,
+    ...common(state),
+    options: spec.options as Record<string, unknown>,
+    createdAt: spec.createdAt,
+    summary,
+  };
+}
+
+function common(state: TaskState) {
+  return {
+    status: state.status,
+    progress: state.progress,
+    error: state.error,
+    attempt: state.attempt,
+    startedAt: state.startedAt,
+    finishedAt: state.finishedAt,
+  };
+}

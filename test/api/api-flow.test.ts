@@ -1,0 +1,128 @@
+import sharp from 'sharp';
+import request from 'supertest';
+import { afterAll, beforeAll, describe, expect, it } from 'vitest';
+import { OnnxBackend } from '../../src/compute/onnx-backend.js';
+import { DenseRows } from '../../src/core/rows.js';
+import { select } from '../../src/core/select.js';
+import type { ResultDocument } from '../../src/jobs/result-document.js';
+import { buildTar, png, type Rgb } from '../data/archive-fixtures.js';
+import { clusterMatrix, npyOf } from '../jobs/task-fixtures.js';
+import { readEvents, settle, testServer, type TestServer } from './api-helpers.js';
+
+/**
+ * The whole path through the HTTP API in embedded mode: upload → ingestion → selection (with SSE
+ * progress) → result (checked against the engine run directly with the same seed) → assignments →
+ * contact sheet.
+ */
+describe('API end to end (embedded queue)', () => {
+  let t: TestServer;
+  let url: string;
+  const data = clusterMatrix(3000, 17);
+  const options = { k: 6, seed: 3, maxIterations: 300 };
+  let datasetId: string;
+  let jobId: string;
+
+  beforeAll(async () => {
+    t = await testServer();
+    url = t.server.url;
+  });
+  afterAll(async () => t?.stop());
+
+  it('ingests an uploaded .npy file', async () => {
+    const res = await request(url).post('/v1/datasets').attach('file', npyOf(data), 'parts.npy').field('name', 'line 4 sensors');
+    expect(res.status).toBe(202);
+    expect(res.body.status).toMatch(/queued|running/);
+    expect(res.body.source).toEqual({ name: 'parts.npy', bytes: npyOf(data).length });
+    datasetId = res.body.id;
+    const ds = await settle(url, `/v1/datasets/${datasetId}`);
+    expect(ds).toMatchObject({ status: 'completed', rows: data.rows, cols: data.cols, format: 'npy', name: 'line 4 sensors', hasImages: false });
+  });
+
+  it('runs a selection whose events end in completion, and whose result equals the engine’s own for the same seed', async () => {
+    const res = await request(url).post('/v1/jobs').send({ datasetId, ...options });
+    expect(res.status).toBe(202);
+    jobId = res.body.id;
+    expect(res.body.options).toMatchObject({ ...options, kernel: 'energy', weights: 'optimized' });
+    const events = await readEvents(url, `/v1/jobs/${jobId}/events`);
+    expect(events.at(-1)).toEqual({ event: 'end', data: { status: 'completed' } });
+    const states = events.filter((e) => e.event === 'state').map((e) => e.data);
+    expect(states.at(-1)!.status).toBe('completed');
+    expect(states.at(-1)!.summary).toMatchObject({ k: 6 });
+
+    const result = (await request(url).get(`/v1/jobs/${jobId}/result`)).body as ResultDocument;
+    expect(result.representatives).toHaveLength(6);
+    expect(result.dataset).toMatchObject({ id: datasetId, rows: data.rows, source: 'parts.npy' });
+
+    const backend = await OnnxBackend.create({ threads: 1 });
+    try {
+      const direct = await select(new DenseRows(Float32Array.from(data.matrix), data.rows, data.cols), options, { backend });
+      expect(result.representatives.map((r) => r.index)).toEqual(direct.representatives.map((r) => r.index));
+      expect(result.representatives.map((r) => r.id)).toEqual(direct.representatives.map((r) => String(r.index)));
+      expect(result.discrepancy.value).toBeCloseTo(direct.discrepancy.value, 12);
+    } finally {
+      await backend.dispose();
+    }
+  });
+
+  it('streams every item’s nearest representative as NDJSON and CSV', async () => {
+    const result = (await request(url).get(`/v1/jobs/${jobId}/result`)).body as ResultDocument;
+    const nd = await request(url).get(`/v1/jobs/${jobId}/assignments`).buffer(true).parse((res, cb) => {
+      let text = '';
+      res.on('data', (c: Buffer) => (text += c.toString()));
+      res.on('end', () => cb(null, text));
+    });
+    expect(nd.status).toBe(200);
+    expect(nd.headers['content-type']).toMatch(/ndjson/);
+    const lines = (nd.body as string).trim().split('\n').map((l) => JSON.parse(l) as { id: string; index: number; rank: number; representativeId: string; distance: number });
+    expect(lines).toHaveLength(data.rows);
+    expect(lines.map((l) => l.index)).toEqual(Array.from({ length: data.rows }, (_, i) => i));
+    const counts = new Array<number>(7).fill(0);
+    for (const l of lines) counts[l.rank]++;
+    // Shares in the result are the fractions of items assigned to each representative.
+    for (const r of result.representatives) expect(counts[r.rank] / data.rows).toBeCloseTo(r.share, 12);
+    for (const r of result.representatives) {
+      expect(lines[r.index]).toMatchObject({ rank: r.rank, representativeId: r.id });
+      expect(lines[r.index].distance).toBeCloseTo(0, 3);
+    }
+
+    const csv = await request(url).get(`/v1/jobs/${jobId}/assignments?format=csv`);
+    expect(csv.headers['content-type']).toMatch(/text\/csv/);
+    const rows = csv.text.trim().split('\n');
+    expect(rows[0]).toBe('id,index,rank,representative_id,distance');
+    expect(rows).toHaveLength(data.rows + 1);
+    expect(rows[1].split(',').slice(0, 4)).toEqual([lines[0].id, '0', String(lines[0].rank), lines[0].representativeId]);
+  });
+
+  it('lists the tenant’s datasets and jobs', async () => {
+    const ds = await request(url).get('/v1/datasets');
+    expect(ds.body.datasets.map((d: { id: string }) => d.id)).toContain(datasetId);
+    const jobs = await request(url).get(`/v1/jobs?datasetId=${datasetId}&status=completed`);
+    expect(jobs.body.jobs.map((j: { id: string }) => j.id)).toEqual([jobId]);
+  });
+
+  it('draws a contact sheet of an image dataset’s representatives', async () => {
+    const colours: Rgb[] = [
+      [220, 40, 40],
+      [40, 200, 60],
+      [40, 60, 220],
+    ];
+    const entries = [];
+    for (let i = 0; i < 30; i++) entries.push({ name: `img-${i}.png`, data: await png(24, 24, colours[i % 3]) });
+    const upload = await request(url).post('/v1/datasets').attach('file', await buildTar(entries), 'parts.tar');
+    expect(upload.status).toBe(202);
+    const ds = await settle(url, `/v1/datasets/${upload.body.id}`);
+    expect(ds).toMatchObject({ status: 'completed', rows: 30, hasImages: true });
+    const job = await request(url).post('/v1/jobs').send({ datasetId: upload.body.id, k: 3, maxIterations: 100 });
+    expect((await settle(url, `/v1/jobs/${job.body.id}`)).status).toBe('completed');
+    const sheet = await request(url).get(`/v1/jobs/${job.body.id}/contact-sheet.png?cellSize=64`).buffer(true);
+    expect(sheet.status).toBe(200);
+    expect(sheet.headers['content-type']).toBe('image/png');
+    const meta = await sharp(sheet.body as Buffer).metadata();
+    // 3 cells → 2 columns (⌈√3⌉), 2 rows; layout of src/report/contact-sheet.ts: 4 px padding, 20 px captions.
+    expect(meta.width).toBe(2 * 64 + 3 * 4);
+    expect(meta.height).toBe(2 * (64 + 20) + 3 * 4);
+    // Three clusters of one colour each: three representatives, one per colour.
+    const result = (await request(url).get(`/v1/jobs/${job.body.id}/result`)).body as ResultDocument;
+    expect(new Set(result.representatives.map((r) => r.index % 3)).size).toBe(3);
+  });
+});
