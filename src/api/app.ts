@@ -29,6 +29,8 @@ export interface AppDeps {
   idempotency: IdempotencyStore;
   metrics: Metrics;
   version: string;
+  /** Set to true when shutdown begins: requests from then on get SERVICE_SHUTTING_DOWN. */
+  lifecycle?: { closing: boolean };
 }
 
 declare module 'fastify' {
@@ -97,12 +99,12 @@ export async function buildApp(deps: AppDeps): Promise<App> {
     });
   }
 
-  let closing = false;
+  const lifecycle = deps.lifecycle ?? { closing: false };
   app.addHook('preClose', async () => {
-    closing = true;
+    lifecycle.closing = true;
   });
   app.addHook('onRequest', async (req) => {
-    if (closing) throw new CairnError('SERVICE_SHUTTING_DOWN');
+    if (lifecycle.closing) throw new CairnError('SERVICE_SHUTTING_DOWN');
     if (req.url.startsWith('/v1/')) req.tenant = keys.tenant(req.headers.authorization);
   });
   app.addHook('onResponse', async (req, reply) => {

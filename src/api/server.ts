@@ -72,7 +72,8 @@ export async function startServer(config: Config, log: Logger = pino({ level: co
       metrics.taskSeconds.observe({ kind: ref.kind, status: state.status }, (Date.parse(state.finishedAt) - Date.parse(state.startedAt)) / 1000);
     }
   });
-  const app = await buildApp({ config, store, queue, log, keys, idempotency, metrics, version: packageVersion() });
+  const lifecycle = { closing: false };
+  const app = await buildApp({ config, store, queue, log, keys, idempotency, metrics, version: packageVersion(), lifecycle });
   const retention = () => applyRetention(store, idempotency, config.CAIRN_RETENTION_HOURS, log).catch((err: unknown) => log.error({ err }, 'retention failed'));
   void retention();
   const timer = setInterval(retention, RETENTION_EVERY_MS).unref();
@@ -88,6 +89,7 @@ export async function startServer(config: Config, log: Logger = pino({ level: co
     store,
     url,
     close() {
+      lifecycle.closing = true;
       closing ??= (async () => {
         clearInterval(timer);
         await app.close();
