@@ -100,6 +100,17 @@ describe('API end to end (embedded queue)', () => {
     expect(jobs.body.jobs.map((j: { id: string }) => j.id)).toEqual([jobId]);
   });
 
+  it('reports queue depth, task durations and upload bytes at /metrics', async () => {
+    const res = await request(url).get('/metrics');
+    expect(res.status).toBe(200);
+    expect(res.text).toMatch(/^cairn_queue_tasks\{state="waiting"\} 0$/m);
+    expect(res.text).toMatch(/^cairn_queue_tasks\{state="active"\} 0$/m);
+    expect(res.text).toMatch(/^cairn_task_duration_seconds_count\{kind="job",status="completed"\} [1-9]/m);
+    expect(res.text).toMatch(/^cairn_task_duration_seconds_count\{kind="dataset",status="completed"\} [1-9]/m);
+    const bytes = Number(/^cairn_upload_bytes_total (\d+)/m.exec(res.text)?.[1]);
+    expect(bytes).toBeGreaterThanOrEqual(npyOf(data).length);
+  });
+
   it('draws a contact sheet of an image dataset’s representatives', async () => {
     const colours: Rgb[] = [
       [220, 40, 40],
