@@ -25,6 +25,23 @@ export interface RunningServer {
 
 const RETENTION_EVERY_MS = 3600 * 1000;
 
+async function requeueUnfinished(store: TaskStore, queue: JobQueue): Promise<number> {
+  let count = 0;
+  for (const tenant of await store.tenants()) {
+    for (const kind of ['dataset', 'job'] as const) {
+      for (const id of await store.list(tenant, kind)) {
+        const ref = { kind, tenant, id };
+        const state = await store.readState(ref).catch(() => null);
+        if (state && !isFinal(state.status)) {
+          await queue.enqueue(ref);
+          count++;
+        }
+      }
+    }
+  }
+  return count;
+}
+
 export function packageVersion(): string {
   try {
     return (JSON.parse(readFileSync(new URL('../../package.json', import.meta.url), 'utf8')) as { version: string }).version;
@@ -49,7 +66,11 @@ export async function startServer(config: Config, log: Logger = pino({ level: co
   if (config.REDIS_URL) {
     // Loaded only when configured: embedded installs never open a Redis client.
     const { BullQueue } = await import('../jobs/bullmq-queue.js');
-    queue = await BullQueue.create({ redisUrl: config.REDIS_URL, prefix: config.CAIRN_QUEUE_PREFIX, maxAttempts: config.CAIRN_JOB_ATTEMPTS, log });
+    queue = await BullQueue.create({ redisUrl: config.REDIS_URL, prefix: config.CAIRN_QUEUE_PREFIX, store, maxAttempts: config.CAIRN_JOB_ATTEMPTS, log });
+    // The task folders are the record: hand Redis every unfinished task again, in case Redis lost
+    // it (a restart without persistence). Job ids are fixed per task, so known ones are not doubled.
+    const requeued = await requeueUnfinished(store, queue);
+    if (requeued) log.info({ tasks: requeued }, 'handed unfinished tasks to the queue');
   } else {
     // Leave a core to the API's event loop, so status polls stay fast while a selection runs.
     const cores = availableParallelism();

@@ -3,7 +3,7 @@ import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { TaskStore } from '../../src/jobs/task-store.js';
-import type { TaskState } from '../../src/jobs/task.js';
+import { isFinal, type TaskState } from '../../src/jobs/task.js';
 import type { ResultDocument } from '../../src/jobs/result-document.js';
 import { queueFactories, type QueueHarness } from '../helpers/queues.js';
 import { clusterMatrix, createIngest, createSelect, npyOf, waitFor } from './task-fixtures.js';
@@ -46,9 +46,18 @@ describe.each(queueFactories())('queue conformance: $name', (factory) => {
   it('runs a selection with progress events through to a result and assignments', async () => {
     const ref = await createSelect(store, tenant, datasetId, { k: 8, seed: 1, maxIterations: 300 });
     const seen: TaskState[] = [];
-    const off = h.queue.subscribe((e) => e.ref.id === ref.id && seen.push(e.state));
+    let sawFinal: () => void = () => undefined;
+    const finalEvent = new Promise<void>((resolve) => (sawFinal = resolve));
+    const off = h.queue.subscribe((e) => {
+      if (e.ref.id !== ref.id) return;
+      seen.push(e.state);
+      if (isFinal(e.state.status)) sawFinal();
+    });
     await h.queue.enqueue(ref);
     const final = await waitFor(store, h.queue, ref);
+    // waitFor may see the end in state.json before the queue's event arrives (BullMQ relays it
+    // through Redis): the final event must still come, and be the last one.
+    await Promise.race([finalEvent, new Promise((resolve) => setTimeout(resolve, 10_000))]);
     off();
     expect(final.status).toBe('completed');
     expect(final.attempt).toBe(1);
