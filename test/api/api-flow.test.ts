@@ -7,15 +7,50 @@ import { select } from '../../src/core/select.js';
 import type { ResultDocument } from '../../src/jobs/result-document.js';
 import { buildTar, png, type Rgb } from '../data/archive-fixtures.js';
 import { clusterMatrix, npyOf } from '../jobs/task-fixtures.js';
+import { startBullWorker } from '../../src/jobs/bullmq-worker.js';
+import { deleteKeys, testLog, testRedisUrl, uniquePrefix } from '../helpers/queues.js';
 import { readEvents, settle, testServer, type TestServer } from './api-helpers.js';
 
+interface Mode {
+  name: string;
+  start(): Promise<{ t: TestServer; stop(): Promise<void> }>;
+}
+
+const modes: Mode[] = [
+  {
+    name: 'embedded queue',
+    async start() {
+      const t = await testServer();
+      return { t, stop: () => t.stop() };
+    },
+  },
+  {
+    name: 'BullMQ on Redis with a worker',
+    async start() {
+      const redisUrl = testRedisUrl();
+      const prefix = uniquePrefix();
+      const t = await testServer({ REDIS_URL: redisUrl, CAIRN_QUEUE_PREFIX: prefix });
+      const worker = await startBullWorker({ redisUrl, prefix, dataDir: t.dir, concurrency: 1, maxAttempts: 2, computeThreads: 1, checkpointEveryMs: 500, stalledMs: 5000, log: testLog });
+      return {
+        t,
+        async stop() {
+          await worker.close(0);
+          await t.stop();
+          await deleteKeys(redisUrl, prefix);
+        },
+      };
+    },
+  },
+];
+
 /**
- * The whole path through the HTTP API in embedded mode: upload → ingestion → selection (with SSE
- * progress) → result (checked against the engine run directly with the same seed) → assignments →
- * contact sheet.
+ * The whole path through the HTTP API, in both queue modes: upload → ingestion → selection (with
+ * SSE progress) → result (checked against the engine run directly with the same seed) →
+ * assignments → contact sheet.
  */
-describe('API end to end (embedded queue)', () => {
+describe.each(modes)('API end to end ($name)', (mode) => {
   let t: TestServer;
+  let stop: () => Promise<void>;
   let url: string;
   const data = clusterMatrix(3000, 17);
   const options = { k: 6, seed: 3, maxIterations: 300 };
@@ -23,10 +58,10 @@ describe('API end to end (embedded queue)', () => {
   let jobId: string;
 
   beforeAll(async () => {
-    t = await testServer();
+    ({ t, stop } = await mode.start());
     url = t.server.url;
   });
-  afterAll(async () => t?.stop());
+  afterAll(async () => stop?.());
 
   it('ingests an uploaded .npy file', async () => {
     const res = await request(url).post('/v1/datasets').attach('file', npyOf(data), 'parts.npy').field('name', 'line 4 sensors');
@@ -103,6 +138,7 @@ describe('API end to end (embedded queue)', () => {
   it('reports queue depth, task durations and upload bytes at /metrics', async () => {
     const res = await request(url).get('/metrics');
     expect(res.status).toBe(200);
+    // Queue depth is read at scrape time (from Redis in BullMQ mode).
     expect(res.text).toMatch(/^cairn_queue_tasks\{state="waiting"\} 0$/m);
     expect(res.text).toMatch(/^cairn_queue_tasks\{state="active"\} 0$/m);
     expect(res.text).toMatch(/^cairn_task_duration_seconds_count\{kind="job",status="completed"\} [1-9]/m);
