@@ -7,7 +7,10 @@ export default tseslint.config(
   ...tseslint.configs.recommended,
   {
     languageOptions: {
-      globals: { process: 'readonly', console: 'readonly', Buffer: 'readonly', URL: 'readonly' },
+      // Node 20's globals that plain .mjs scripts use (TypeScript files are checked by tsc instead).
+      globals: Object.fromEntries(
+        ['process', 'console', 'Buffer', 'URL', 'setTimeout', 'clearTimeout', 'setInterval', 'clearInterval', 'setImmediate', 'fetch', 'FormData', 'Blob', 'AbortController', 'performance', 'TextEncoder', 'TextDecoder'].map((name) => [name, 'readonly']),
+      ),
     },
     rules: {
       '@typescript-eslint/no-unused-vars': ['error', { argsIgnorePattern: '^_', varsIgnorePattern: '^_' }],

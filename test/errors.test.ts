@@ -3,11 +3,14 @@ import { join } from 'node:path';
 import { describe, expect, it } from 'vitest';
 import { CairnError, ERROR_CATALOGUE, type ErrorCode } from '../src/errors.js';
 
+const THIS_FILE = join(import.meta.dirname, 'errors.test.ts');
+
 function testSources(dir: string): string[] {
   return readdirSync(dir).flatMap((name) => {
     const path = join(dir, name);
     if (statSync(path).isDirectory()) return testSources(path);
-    return path.endsWith('.ts') && !path.endsWith('errors.test.ts') ? [readFileSync(path, 'utf8')] : [];
+    // This file lists every code itself, so it does not count.
+    return path.endsWith('.ts') && path !== THIS_FILE ? [readFileSync(path, 'utf8')] : [];
   });
 }
 
