@@ -99,6 +99,19 @@ describe.each(modes)('API end to end ($name)', (mode) => {
     }
   });
 
+  it('streams progress events during the descent, in order, then a final event', async () => {
+    const job = (await request(url).post('/v1/jobs').send({ datasetId, k: 6, maxIterations: 3000, plateauTolerance: 0 })).body;
+    const events = await readEvents(url, `/v1/jobs/${job.id}/events`);
+    const states = events.filter((e) => e.event === 'state').map((e) => e.data as { status: string; progress: { phase: string; fraction: number; iteration?: number } });
+    const descent = states.filter((s) => s.status === 'running' && s.progress.phase === 'descent');
+    expect(descent.length).toBeGreaterThanOrEqual(2);
+    expect(descent.every((s) => (s.progress.iteration ?? 0) > 0 && s.progress.fraction < 1)).toBe(true);
+    const fractions = states.map((s) => s.progress.fraction);
+    expect(fractions).toEqual([...fractions].sort((a, b) => a - b));
+    expect(states.at(-1)!.status).toBe('completed');
+    expect(events.at(-1)).toEqual({ event: 'end', data: { status: 'completed' } });
+  });
+
   it('streams every item’s nearest representative as NDJSON and CSV', async () => {
     const result = (await request(url).get(`/v1/jobs/${jobId}/result`)).body as ResultDocument;
     const nd = await request(url).get(`/v1/jobs/${jobId}/assignments`).buffer(true).parse((res, cb) => {
@@ -132,7 +145,8 @@ describe.each(modes)('API end to end ($name)', (mode) => {
     const ds = await request(url).get('/v1/datasets');
     expect(ds.body.datasets.map((d: { id: string }) => d.id)).toContain(datasetId);
     const jobs = await request(url).get(`/v1/jobs?datasetId=${datasetId}&status=completed`);
-    expect(jobs.body.jobs.map((j: { id: string }) => j.id)).toEqual([jobId]);
+    expect(jobs.body.jobs.map((j: { id: string }) => j.id)).toContain(jobId);
+    expect(jobs.body.jobs).toHaveLength(2);
   });
 
   it('reports queue depth, task durations and upload bytes at /metrics', async () => {
