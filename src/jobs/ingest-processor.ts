@@ -1,4 +1,4 @@
-import { ingestFile } from '../data/dataset-store.js';
+import { ingestFile, openDataset } from '../data/dataset-store.js';
 import { defaultReadOptions } from '../data/read-options.js';
 import type { ProcessorContext } from './processor.js';
 import type { IngestSpec } from './task.js';
@@ -10,6 +10,16 @@ import type { IngestSpec } from './task.js';
 export async function ingestProcessor(ctx: ProcessorContext): Promise<void> {
   const { store, ref } = ctx;
   const spec = await store.readSpec<IngestSpec>(ref);
+  // An earlier attempt may have stored the dataset and died before recording it: stored datasets
+  // appear whole (renamed into place when complete), so one that opens is finished.
+  try {
+    openDataset(store.storeDir(ref.tenant), ref.id);
+    await store.removeFile(ref, 'source');
+    ctx.onProgress({ phase: 'ingest', fraction: 1 });
+    return;
+  } catch {
+    // Not stored yet: ingest it.
+  }
   const total = Math.max(spec.sourceBytes, 1);
   let lastReport = 0;
   await ingestFile(store.file(ref, 'source'), {
