@@ -78,6 +78,18 @@ export const ERROR_CATALOGUE = {
   DATASET_HAS_NO_IMAGES: { status: 409, message: 'The dataset has no images, so there is no contact sheet.' },
   SERVICE_SHUTTING_DOWN: { status: 503, message: 'The service is shutting down; retry shortly.' },
   INTERNAL_ERROR: { status: 500, message: 'An internal error occurred; it has been logged.' },
+  // --- embedding models ---
+  MODEL_NOT_FOUND: { status: 404, message: 'No model with this name is in the models directory.' },
+  MODEL_INVALID: { status: 422, message: 'The model failed validation at start-up; GET /v1/models shows why.' },
+  MODEL_BAD_DESCRIPTION: { status: 422, message: 'The model description is not valid JSON or does not match the description schema.' },
+  MODEL_FILE_MISSING: { status: 422, message: 'The .onnx file named by the model description does not exist.' },
+  MODEL_LOAD_FAILED: { status: 422, message: 'onnxruntime cannot load the model file, or the model fails on a probe batch.' },
+  MODEL_INPUT_MISMATCH: { status: 422, message: 'The model input does not match its description (name, type, rank, channels or size).' },
+  MODEL_OUTPUT_MISSING: { status: 422, message: 'The model has no output with the name its description gives.' },
+  MODEL_OUTPUT_NOT_FLOAT: { status: 422, message: 'The model output named in its description is not a float32 tensor.' },
+  MODEL_OUTPUT_DIM_MISMATCH: { status: 422, message: 'The pooled model output does not have the vector length its description gives.' },
+  EMBEDDING_NON_FINITE: { status: 422, message: 'The model produced NaN or infinite values for an image.' },
+  DATASET_NOT_IMAGES: { status: 409, message: 'Embedding needs an image dataset with stored thumbnails.' },
   // --- compute ---
   COMPUTE_BACKEND_FAILED: { status: 500, message: 'A compute kernel failed to run.' },
 } as const satisfies Record<string, { status: number; message: string }>;

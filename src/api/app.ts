@@ -15,6 +15,8 @@ import { datasetRoutes } from './dataset-routes.js';
 import type { IdempotencyStore } from './idempotency.js';
 import { jobRoutes } from './job-routes.js';
 import type { Metrics } from './metrics.js';
+import type { ModelRegistry } from '../embed/model-registry.js';
+import { modelRoutes } from './model-routes.js';
 import { opsRoutes } from './ops-routes.js';
 import { EventStreams } from './event-streams.js';
 
@@ -28,6 +30,8 @@ export interface AppDeps {
   keys: ApiKeys;
   idempotency: IdempotencyStore;
   metrics: Metrics;
+  /** Embedding models, validated at start-up. */
+  models: ModelRegistry;
   version: string;
   /** Set to true when shutdown begins: requests from then on get SERVICE_SHUTTING_DOWN. */
   lifecycle?: { closing: boolean };
@@ -126,6 +130,7 @@ export async function buildApp(deps: AppDeps): Promise<App> {
   await app.register(async (v1) => {
     datasetRoutes(v1 as App, deps, streams);
     jobRoutes(v1 as App, deps, streams);
+    modelRoutes(v1 as App, deps);
   });
   opsRoutes(app, deps);
   return app;

@@ -144,6 +144,7 @@ export function datasetRoutes(app: App, deps: AppDeps, streams: EventStreams): v
       await deleteDataset(store.storeDir(req.tenant), r.id).catch((err: unknown) => {
         if (!(err instanceof CairnError && err.code === 'DATASET_NOT_FOUND')) throw err;
       });
+      await rm(store.embeddingsDir(req.tenant, r.id), { recursive: true, force: true });
       return reply.status(204).send(null);
     },
   );

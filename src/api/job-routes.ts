@@ -16,6 +16,8 @@ import { fingerprintOf } from './idempotency.js';
 import { datasetView, jobView } from './resources.js';
 import { assignmentsQuery, contactSheetQuery, createJobBody, errorBody, idParams, jobListQuery, jobResource } from './schemas.js';
 import { newId } from './task-ids.js';
+import { EmbeddingCache, embeddingCacheKey } from '../jobs/embedding-cache.js';
+import { removeJob, shardRanges } from '../jobs/job-files.js';
 
 const errors = { 400: errorBody, 401: errorBody, 404: errorBody, 409: errorBody, 422: errorBody, 429: errorBody };
 
@@ -33,6 +35,20 @@ export function jobRoutes(app: App, deps: AppDeps, streams: EventStreams): void 
     if (state.status !== 'completed') throw new CairnError('JOB_NOT_COMPLETED', `The job is ${state.status}.`, { jobId: id, status: state.status });
     return { r, spec: await store.readSpec<SelectSpec>(r) };
   };
+  /** Cancels the job and its embedding shards (queued ones at once; running ones see their markers). */
+  const cancelJob = async (r: TaskRef): Promise<void> => {
+    const spec = await store.readSpec<SelectSpec>(r);
+    await store.requestCancel(r);
+    for (const sh of spec.embedding?.shards ?? []) {
+      const child: TaskRef = { kind: 'embed', tenant: r.tenant, id: sh.id };
+      const s = await store.readState(child).catch(() => null);
+      if (s && !isFinal(s.status)) {
+        await store.requestCancel(child);
+        await queue.cancel(child);
+      }
+    }
+    await queue.cancel(r);
+  };
   const readResult = async (r: TaskRef): Promise<ResultDocument> => JSON.parse(await store.readText(r, 'result.json')) as ResultDocument;
 
   app.post(
@@ -48,19 +64,41 @@ export function jobRoutes(app: App, deps: AppDeps, streams: EventStreams): void 
     },
     async (req, reply) => {
       const tenant = req.tenant;
-      const { datasetId, name, ...options } = req.body;
+      const { datasetId, name, embedding: wanted, ...options } = req.body;
       const create = async () => {
         const dsRef: TaskRef = { kind: 'dataset', tenant, id: datasetId };
         if (!(await store.exists(dsRef))) throw new CairnError('DATASET_NOT_FOUND', undefined, { datasetId });
         const ds = await datasetView(store, dsRef);
         if (ds.status !== 'completed' || ds.rows === null) throw new CairnError('DATASET_NOT_READY', `The dataset is ${ds.status}.`, { datasetId, status: ds.status });
         if (options.k > ds.rows) throw new CairnError('K_TOO_LARGE', `k = ${options.k} but the dataset has ${ds.rows} rows.`, { k: options.k, rows: ds.rows });
+        let cols = ds.cols!;
+        const id = newId('job');
+        let embedding: SelectSpec['embedding'];
+        const children: TaskRef[] = [];
+        if (wanted) {
+          const model = deps.models.get(wanted.model);
+          if (!ds.hasImages) throw new CairnError('DATASET_NOT_IMAGES', undefined, { datasetId });
+          const normalize = wanted.normalize ?? model.description.normalize;
+          const cacheKey = embeddingCacheKey(model.sha256, model.description, normalize);
+          const cached = await new EmbeddingCache(join(store.embeddingsDir(tenant, datasetId), cacheKey)).meta();
+          const choice = { model: model.name, modelSha256: model.sha256, normalize, cacheKey };
+          // Shards only for an embedding not cached yet: each a child task any worker can run.
+          const ranges = cached ? [] : shardRanges(ds.rows, deps.config.CAIRN_EMBED_SHARD_ROWS);
+          const shards = ranges.map((rg) => ({ id: `${id}-e${rg.start}`, ...rg }));
+          for (const sh of shards) {
+            const child: TaskRef = { kind: 'embed', tenant, id: sh.id };
+            await store.create(child, { kind: 'embed', datasetId, parentJobId: id, embedding: choice, start: sh.start, count: sh.count, createdAt: new Date().toISOString() });
+            children.push(child);
+          }
+          embedding = { ...choice, shards };
+          cols = model.description.output.dim;
+        }
         const pca = /^pca:(\d+)$/.exec(options.space);
-        if (pca && Number(pca[1]) > ds.cols!) throw new CairnError('INVALID_ARGUMENT', `space pca:${pca[1]} asks for more axes than the dataset's ${ds.cols} columns.`, { name: 'space', value: options.space });
-        const r = ref(tenant, newId('job'));
-        const spec: SelectSpec = { kind: 'job', datasetId, options, name, createdAt: new Date().toISOString() };
+        if (pca && Number(pca[1]) > cols) throw new CairnError('INVALID_ARGUMENT', `space pca:${pca[1]} asks for more axes than the ${cols} dimensions of the vectors.`, { name: 'space', value: options.space });
+        const r = ref(tenant, id);
+        const spec: SelectSpec = { kind: 'job', datasetId, options, name, ...(embedding ? { embedding } : {}), createdAt: new Date().toISOString() };
         await store.create(r, spec);
-        await queue.enqueue(r);
+        await queue.enqueue(r, children);
         return { status: 202, body: await jobView(store, r) };
       };
       const key = idempotencyKey(req.headers['idempotency-key']);
@@ -96,19 +134,15 @@ export function jobRoutes(app: App, deps: AppDeps, streams: EventStreams): void 
     const r = await existing(req.tenant, req.params.id);
     const state = await store.readState(r);
     if (isFinal(state.status)) throw new CairnError('JOB_FINISHED', `The job is ${state.status}.`, { jobId: r.id, status: state.status });
-    await store.requestCancel(r);
-    await queue.cancel(r);
+    await cancelJob(r);
     return reply.status(202).send(await jobView(store, r));
   });
 
   app.delete('/v1/jobs/:id', { schema: { summary: 'Delete a job', description: 'Cancels it if needed and deletes its record, checkpoint, result and assignments.', tags: ['jobs'], params: idParams, response: { 204: z.null(), ...errors } } }, async (req, reply) => {
     const r = await existing(req.tenant, req.params.id);
     const state = await store.readState(r);
-    if (!isFinal(state.status)) {
-      await store.requestCancel(r);
-      await queue.cancel(r);
-    }
-    await store.remove(r);
+    if (!isFinal(state.status)) await cancelJob(r);
+    await removeJob(store, r);
     return reply.status(204).send(null);
   });
 

@@ -9,6 +9,7 @@ import { buildApp } from './app.js';
 import { ApiKeys } from './auth.js';
 import { IdempotencyStore } from './idempotency.js';
 import { Metrics } from './metrics.js';
+import { ModelRegistry } from '../embed/model-registry.js';
 import { packageVersion } from './server.js';
 
 /**
@@ -29,6 +30,7 @@ export async function openapiDocument(): Promise<Record<string, unknown>> {
     keys: new ApiKeys([]),
     idempotency: new IdempotencyStore(join(dir, 'idempotency')),
     metrics: new Metrics(queue),
+    models: await ModelRegistry.load(join(dir, 'no-models'), { info: () => undefined, warn: () => undefined }),
     version: packageVersion(),
   });
   try {

@@ -47,10 +47,21 @@ export async function jobView(store: TaskStore, ref: TaskRef): Promise<JobResour
     const text = await store.readOptional(ref, 'summary.json');
     summary = text ? (JSON.parse(text) as JobResource['summary']) : null;
   }
+  let embedding: JobResource['embedding'] = null;
+  if (spec.embedding) {
+    const shards = await Promise.all(
+      spec.embedding.shards.map(async (sh) => {
+        const s = await store.readState({ kind: 'embed', tenant: ref.tenant, id: sh.id }).catch(() => null);
+        return { ...sh, status: s?.status ?? ('completed' as const), fraction: s?.progress.fraction ?? 1 };
+      }),
+    );
+    embedding = { model: spec.embedding.model, normalize: spec.embedding.normalize, shards };
+  }
   return {
     id: ref.id,
     name: spec.name ?? null,
     datasetId: spec.datasetId,
+    embedding,
     ...common(state),
     options: spec.options as Record<string, unknown>,
     createdAt: spec.createdAt,

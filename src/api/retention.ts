@@ -1,5 +1,7 @@
 import type { Logger } from 'pino';
 import { deleteDataset } from '../data/dataset-store.js';
+import { rm } from 'node:fs/promises';
+import { removeJob } from '../jobs/job-files.js';
 import type { TaskStore } from '../jobs/task-store.js';
 import { isFinal } from '../jobs/task.js';
 import type { IdempotencyStore } from './idempotency.js';
@@ -25,7 +27,7 @@ export async function applyRetention(store: TaskStore, idempotency: IdempotencyS
           continue;
         }
         if (Date.parse(state.finishedAt ?? spec.createdAt) < cutoff) {
-          await store.remove(ref);
+          await removeJob(store, ref);
           removed++;
         }
       } catch {
@@ -39,6 +41,7 @@ export async function applyRetention(store: TaskStore, idempotency: IdempotencyS
         if (inUse.has(id) || !isFinal(state.status) || Date.parse(spec.createdAt) >= cutoff) continue;
         await store.remove(ref);
         await deleteDataset(store.storeDir(tenant), id).catch(() => undefined);
+        await rm(store.embeddingsDir(tenant, id), { recursive: true, force: true });
         removed++;
       } catch {
         // Deleted meanwhile.

@@ -31,6 +31,14 @@ export const progressSchema = z.object({
   etaSeconds: z.number().optional(),
 });
 
+export const modelEntry = z.object({
+  name: z.string(),
+  status: z.enum(['ready', 'invalid']),
+  error: z.object({ code: z.string(), message: z.string() }).nullable().describe('Why the model failed validation at start-up.'),
+  description: z.record(z.string(), z.unknown()).nullable().describe('The model description with defaults filled in.'),
+  sha256: z.string().nullable().describe('SHA-256 of the .onnx file.'),
+});
+
 const taskError = errorBody.shape.error.nullable().describe('Why the task failed or was cancelled; while a retry waits, the transient error.');
 
 export const datasetResource = z.object({
@@ -66,13 +74,29 @@ export const jobResource = z.object({
   createdAt: z.string(),
   startedAt: z.string().nullable(),
   finishedAt: z.string().nullable(),
+  embedding: z
+    .object({
+      model: z.string(),
+      normalize: z.boolean(),
+      shards: z.array(z.object({ id: z.string(), start: z.number().int(), count: z.number().int(), status: statusEnum, fraction: z.number() })),
+    })
+    .nullable()
+    .describe('For a job in an embedding space: the model, and the embedding shards this job queued (none when the embedding was cached) with their progress.'),
   summary: z
     .object({ k: z.number().int(), d2: z.number(), ratioToRandom: z.number().nullable(), seconds: z.number() })
     .nullable()
     .describe('For a completed job: k, D², D² relative to random k-subsets, and the run time.'),
 });
 
+export const embeddingChoice = z
+  .object({
+    model: z.string().min(1).max(64).describe('Name of a ready model (GET /v1/models).'),
+    normalize: z.boolean().optional().describe("Scale each embedded vector to unit length; default: the model description's `normalize`."),
+  })
+  .describe('Select in the embedding space of an ONNX model (image datasets only). The embedding is computed once per dataset and model, in shards any worker can run, and reused by later jobs; `space` then applies to the embedded vectors.');
+
 export const createJobBody = selectOptionsSchema.extend({
+  embedding: embeddingChoice.optional(),
   datasetId: resourceId.describe('A dataset of this tenant whose ingestion has completed.'),
   name: z.string().max(200).optional().describe('Free text shown back in listings.'),
 });

@@ -6,9 +6,10 @@ import { parseApiKeys, type Config } from '../config.js';
 import { EmbeddedQueue } from '../jobs/embedded-queue.js';
 import type { JobQueue } from '../jobs/queue.js';
 import { TaskStore } from '../jobs/task-store.js';
-import { isFinal } from '../jobs/task.js';
+import { isFinal, TASK_KINDS } from '../jobs/task.js';
 import { buildApp, type App } from './app.js';
 import { ApiKeys } from './auth.js';
+import { ModelRegistry } from '../embed/model-registry.js';
 import { IdempotencyStore } from './idempotency.js';
 import { Metrics } from './metrics.js';
 import { applyRetention } from './retention.js';
@@ -28,7 +29,7 @@ const RETENTION_EVERY_MS = 3600 * 1000;
 async function requeueUnfinished(store: TaskStore, queue: JobQueue): Promise<number> {
   let count = 0;
   for (const tenant of await store.tenants()) {
-    for (const kind of ['dataset', 'job'] as const) {
+    for (const kind of TASK_KINDS) {
       for (const id of await store.list(tenant, kind)) {
         const ref = { kind, tenant, id };
         const state = await store.readState(ref).catch(() => null);
@@ -81,11 +82,13 @@ export async function startServer(config: Config, log: Logger = pino({ level: co
       maxAttempts: config.CAIRN_JOB_ATTEMPTS,
       computeThreads: threads,
       checkpointEveryMs: config.CAIRN_CHECKPOINT_SECONDS * 1000,
+      modelsDir: config.CAIRN_MODELS_DIR,
       log,
     });
     await embedded.start();
     queue = embedded;
   }
+  const models = await ModelRegistry.load(config.CAIRN_MODELS_DIR, log);
   const idempotency = new IdempotencyStore(join(config.CAIRN_DATA_DIR, 'idempotency'));
   const metrics = new Metrics(queue);
   const unsubscribe = queue.subscribe(({ ref, state }) => {
@@ -94,7 +97,7 @@ export async function startServer(config: Config, log: Logger = pino({ level: co
     }
   });
   const lifecycle = { closing: false };
-  const app = await buildApp({ config, store, queue, log, keys, idempotency, metrics, version: packageVersion(), lifecycle });
+  const app = await buildApp({ config, store, queue, log, keys, idempotency, metrics, version: packageVersion(), lifecycle, models });
   const retention = () => applyRetention(store, idempotency, config.CAIRN_RETENTION_HOURS, log).catch((err: unknown) => log.error({ err }, 'retention failed'));
   void retention();
   const timer = setInterval(retention, RETENTION_EVERY_MS).unref();

@@ -58,6 +58,7 @@ export async function runWorker(): Promise<void> {
     maxAttempts: config.CAIRN_JOB_ATTEMPTS,
     computeThreads: config.CAIRN_COMPUTE_THREADS,
     checkpointEveryMs: config.CAIRN_CHECKPOINT_SECONDS * 1000,
+    modelsDir: config.CAIRN_MODELS_DIR,
     stalledMs: config.CAIRN_STALLED_SECONDS * 1000,
     log,
   });

@@ -1,14 +1,14 @@
 import { EventEmitter } from 'node:events';
-import { Queue, QueueEvents } from 'bullmq';
+import { FlowProducer, Queue, QueueEvents, type JobsOptions } from 'bullmq';
 import { Redis } from 'ioredis';
 import type { Logger } from 'pino';
 import { cancelUnstarted } from './cancel-unstarted.js';
 import type { JobQueue, QueueCounts, QueueEvent } from './queue.js';
 import type { TaskStore } from './task-store.js';
-import { taskKey, type TaskKind, type TaskRef, type TaskState } from './task.js';
+import { TASK_KINDS, taskKey, type TaskKind, type TaskRef, type TaskState } from './task.js';
 
 /** BullMQ queue of each task kind, under the configured key prefix (`<prefix>:<name>:…` in Redis). */
-export const QUEUE_NAMES: Record<TaskKind, string> = { dataset: 'ingest', job: 'select' };
+export const QUEUE_NAMES: Record<TaskKind, string> = { dataset: 'ingest', job: 'select', embed: 'embed' };
 
 /** What a worker publishes with job.updateProgress: every state its runner writes. */
 export interface ProgressMessage {
@@ -40,8 +40,8 @@ export interface BullQueueOptions {
 /** Finished jobs stay in Redis this long; the task folder on disk is the lasting record. */
 const KEEP_FINISHED_SECONDS = 24 * 3600;
 const PING_TIMEOUT_MS = 1000;
-/** Counted as waiting: new jobs, retries waiting out their backoff, and prioritized ones. */
-const WAITING_TYPES = ['waiting', 'delayed', 'prioritized'] as const;
+/** Counted as waiting: new jobs, retries waiting out their backoff, prioritized ones, and parents waiting for their children. */
+const WAITING_TYPES = ['waiting', 'delayed', 'prioritized', 'waiting-children'] as const;
 
 /**
  * The API side of the BullMQ queue: adds tasks to Redis, cancels waiting ones, and relays the states
@@ -57,6 +57,7 @@ export class BullQueue implements JobQueue {
     private readonly o: BullQueueOptions,
     private readonly queues: Record<TaskKind, Queue>,
     private readonly queueEvents: QueueEvents[],
+    private readonly flows: FlowProducer,
     /** A connection of its own for ready(): it fails fast instead of queueing commands while Redis is away. */
     private readonly probe: Redis,
   ) {
@@ -79,7 +80,7 @@ export class BullQueue implements JobQueue {
     const eventsConnection = { url: o.redisUrl, maxRetriesPerRequest: null };
     const queues = {} as Record<TaskKind, Queue>;
     const queueEvents: QueueEvents[] = [];
-    for (const kind of ['dataset', 'job'] as const) {
+    for (const kind of TASK_KINDS) {
       const q = new Queue(QUEUE_NAMES[kind], { connection: queueConnection, prefix: o.prefix });
       q.on('error', (err) => o.log.warn({ err, queue: QUEUE_NAMES[kind] }, 'queue connection error'));
       queues[kind] = q;
@@ -87,7 +88,9 @@ export class BullQueue implements JobQueue {
       ev.on('error', (err) => o.log.warn({ err, queue: QUEUE_NAMES[kind] }, 'queue events connection error'));
       queueEvents.push(ev);
     }
-    const queue = new BullQueue(o, queues, queueEvents, probe);
+    const flows = new FlowProducer({ connection: queueConnection, prefix: o.prefix });
+    flows.on('error', (err) => o.log.warn({ err }, 'flow producer connection error'));
+    const queue = new BullQueue(o, queues, queueEvents, flows, probe);
     for (const ev of queueEvents) {
       ev.on('progress', ({ data }) => {
         const m = data as Partial<ProgressMessage> | null;
@@ -104,14 +107,37 @@ export class BullQueue implements JobQueue {
     return queue;
   }
 
-  async enqueue(ref: TaskRef): Promise<void> {
-    const backoffMs = this.o.backoffMs ?? 1000;
-    await this.queues[ref.kind].add(taskKey(ref), ref, {
+  private jobOptions(ref: TaskRef): JobsOptions {
+    return {
       jobId: jobIdOf(ref),
       attempts: this.o.maxAttempts,
-      backoff: { type: 'exponential', delay: backoffMs },
+      backoff: { type: 'exponential', delay: this.o.backoffMs ?? 1000 },
       removeOnComplete: { age: KEEP_FINISHED_SECONDS },
       removeOnFail: { age: KEEP_FINISHED_SECONDS },
+    };
+  }
+
+  async enqueue(ref: TaskRef, children: TaskRef[] = []): Promise<void> {
+    if (!children.length) {
+      await this.queues[ref.kind].add(taskKey(ref), ref, this.jobOptions(ref));
+      return;
+    }
+    // A BullMQ flow: the parent waits in 'waiting-children' until every child has finished, then
+    // any worker takes it. A failed child must not block it for ever (ignoreDependencyOnFailure):
+    // the parent then does the child's part itself, or fails with the child's cause.
+    await this.flows.add({
+      name: taskKey(ref),
+      queueName: QUEUE_NAMES[ref.kind],
+      data: ref,
+      prefix: this.o.prefix,
+      opts: this.jobOptions(ref),
+      children: children.map((c) => ({
+        name: taskKey(c),
+        queueName: QUEUE_NAMES[c.kind],
+        data: c,
+        prefix: this.o.prefix,
+        opts: { ...this.jobOptions(c), ignoreDependencyOnFailure: true },
+      })),
     });
   }
 
@@ -155,7 +181,7 @@ export class BullQueue implements JobQueue {
   async close(_graceMs: number): Promise<void> {
     if (this.closing) return;
     this.closing = true;
-    await Promise.allSettled([...this.queueEvents.map((e) => e.close()), ...Object.values(this.queues).map((q) => q.close())]);
+    await Promise.allSettled([...this.queueEvents.map((e) => e.close()), ...Object.values(this.queues).map((q) => q.close()), this.flows.close()]);
     this.probe.disconnect();
     this.events.removeAllListeners();
   }

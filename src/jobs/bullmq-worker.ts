@@ -5,7 +5,7 @@ import { QUEUE_NAMES, type ProgressMessage } from './bullmq-queue.js';
 import { entryFile } from './entry-file.js';
 import { errorOf } from './task-runner.js';
 import { TaskStore } from './task-store.js';
-import { isFinal, type TaskRef, type TaskState } from './task.js';
+import { isFinal, TASK_KINDS, type TaskRef, type TaskState } from './task.js';
 
 export interface BullWorkerOptions {
   redisUrl: string;
@@ -17,6 +17,8 @@ export interface BullWorkerOptions {
   maxAttempts: number;
   computeThreads: number;
   checkpointEveryMs: number;
+  /** Folder of the embedding models. Default ./models. */
+  modelsDir?: string;
   /** A task whose worker stopped renewing its lock this long ago goes to another worker. */
   stalledMs: number;
   log: Logger;
@@ -28,6 +30,7 @@ export interface SandboxSettings {
   maxAttempts: number;
   computeThreads: number;
   checkpointEveryMs: number;
+  modelsDir?: string;
   logLevel: string;
 }
 
@@ -48,13 +51,13 @@ const STOP_MS = 15_000;
 export async function startBullWorker(o: BullWorkerOptions): Promise<{ close(graceMs: number): Promise<void> }> {
   const store = new TaskStore(o.dataDir);
   const entry = entryFile(import.meta.url, 'bullmq-sandbox');
-  const settings: SandboxSettings = { dataDir: o.dataDir, maxAttempts: o.maxAttempts, computeThreads: o.computeThreads, checkpointEveryMs: o.checkpointEveryMs, logLevel: o.log.level };
+  const settings: SandboxSettings = { dataDir: o.dataDir, maxAttempts: o.maxAttempts, computeThreads: o.computeThreads, checkpointEveryMs: o.checkpointEveryMs, modelsDir: o.modelsDir, logLevel: o.log.level };
   // A dead worker's job moves on at the first stalled check that finds its lock expired and the job
   // marked by an earlier check: at most lockDuration + stalledInterval = stalledMs after the death.
   // The lock is renewed every quarter of its life, so only an event-loop pause of over ~3/4 of it
   // (the compute runs in the sandbox, not here) would lose a live job's lock.
   const lockDuration = Math.max(300, Math.round((o.stalledMs * 2) / 3));
-  const workers = (['dataset', 'job'] as const).map((kind) => {
+  const workers = TASK_KINDS.map((kind) => {
     const w = new Worker<TaskRef>(QUEUE_NAMES[kind], entry.path, {
       connection: { url: o.redisUrl, maxRetriesPerRequest: null },
       prefix: o.prefix,

@@ -7,7 +7,7 @@ import { entryFile } from './entry-file.js';
 import type { JobQueue, QueueCounts, QueueEvent } from './queue.js';
 import { errorOf } from './task-runner.js';
 import type { TaskStore } from './task-store.js';
-import { isFinal, taskKey, type TaskRef } from './task.js';
+import { isFinal, TASK_KINDS, taskKey, type TaskRef } from './task.js';
 import type { TaskThreadData, TaskThreadMessage } from './task-thread.js';
 
 export interface EmbeddedQueueOptions {
@@ -17,6 +17,8 @@ export interface EmbeddedQueueOptions {
   maxAttempts: number;
   computeThreads: number;
   checkpointEveryMs: number;
+  /** Folder of the embedding models. Default ./models. */
+  modelsDir?: string;
   /** First retry delay; doubles per attempt. Default 1000 ms. */
   backoffMs?: number;
   log: Logger;
@@ -39,6 +41,8 @@ export class EmbeddedQueue implements JobQueue {
   private readonly waiting: TaskRef[] = [];
   private readonly running = new Map<string, Running>();
   private readonly delayed = new Map<string, NodeJS.Timeout>();
+  /** Parents waiting for their children: parent key → the children not finished yet. */
+  private readonly blocked = new Map<string, { ref: TaskRef; pending: Set<string> }>();
   private readonly attempts = new Map<string, number>();
   private readonly events = new EventEmitter();
   private closing = false;
@@ -51,7 +55,7 @@ export class EmbeddedQueue implements JobQueue {
   async start(): Promise<void> {
     const found: Array<{ ref: TaskRef; createdAt: string; attempt: number }> = [];
     for (const tenant of await this.o.store.tenants()) {
-      for (const kind of ['dataset', 'job'] as const) {
+      for (const kind of TASK_KINDS) {
         for (const id of await this.o.store.list(tenant, kind)) {
           const ref = { kind, tenant, id };
           try {
@@ -73,10 +77,33 @@ export class EmbeddedQueue implements JobQueue {
     this.pump();
   }
 
-  async enqueue(ref: TaskRef): Promise<void> {
+  async enqueue(ref: TaskRef, children: TaskRef[] = []): Promise<void> {
     const key = taskKey(ref);
-    if (this.closing || this.running.has(key) || this.delayed.has(key) || this.waiting.some((r) => taskKey(r) === key)) return;
+    if (this.closing || this.known(key)) return;
+    const pending = new Set<string>();
+    for (const child of children) {
+      await this.enqueue(child);
+      if (this.known(taskKey(child))) pending.add(taskKey(child));
+    }
+    if (pending.size) {
+      this.blocked.set(key, { ref, pending });
+      return;
+    }
     this.waiting.push(ref);
+    this.pump();
+  }
+
+  private known(key: string): boolean {
+    return this.running.has(key) || this.delayed.has(key) || this.blocked.has(key) || this.waiting.some((r) => taskKey(r) === key);
+  }
+
+  /** A task has finished (any outcome): parents waiting only for it may start. */
+  private release(key: string): void {
+    for (const [parentKey, b] of this.blocked) {
+      if (!b.pending.delete(key) || b.pending.size) continue;
+      this.blocked.delete(parentKey);
+      this.waiting.push(b.ref);
+    }
     this.pump();
   }
 
@@ -88,9 +115,12 @@ export class EmbeddedQueue implements JobQueue {
       clearTimeout(timer);
       this.delayed.delete(key);
     }
-    if (at >= 0 || timer) {
+    const parked = this.blocked.get(key);
+    if (parked) this.blocked.delete(key);
+    if (at >= 0 || timer || parked) {
       if (at >= 0) this.waiting.splice(at, 1);
       await this.finishUnstarted(ref);
+      this.release(key);
     }
     // A running task sees the cancel marker within a fraction of a second.
   }
@@ -101,7 +131,7 @@ export class EmbeddedQueue implements JobQueue {
   }
 
   async counts(): Promise<QueueCounts> {
-    return { waiting: this.waiting.length + this.delayed.size, active: this.running.size };
+    return { waiting: this.waiting.length + this.delayed.size + this.blocked.size, active: this.running.size };
   }
 
   async ready(): Promise<boolean> {
@@ -111,6 +141,7 @@ export class EmbeddedQueue implements JobQueue {
   async close(graceMs: number): Promise<void> {
     this.closing = true;
     this.waiting.length = 0;
+    this.blocked.clear();
     for (const t of this.delayed.values()) clearTimeout(t);
     this.delayed.clear();
     const all = Promise.all([...this.running.values()].map((r) => r.done));
@@ -148,6 +179,7 @@ export class EmbeddedQueue implements JobQueue {
       maxAttempts: this.o.maxAttempts,
       computeThreads: this.o.computeThreads,
       checkpointEveryMs: this.o.checkpointEveryMs,
+      modelsDir: this.o.modelsDir,
       logLevel: this.o.log.level,
     };
     const worker = entry.execArgv.length
@@ -178,7 +210,12 @@ export class EmbeddedQueue implements JobQueue {
     if (outcome === null) {
       // The thread died (out of memory, a native crash) before it could record anything.
       const state = await this.o.store.readState(ref).catch(() => null);
-      if (!state || isFinal(state.status) || this.closing) return;
+      if (this.closing) return;
+      if (!state || isFinal(state.status)) {
+        this.attempts.delete(key);
+        this.release(key);
+        return;
+      }
       const error = errorOf(new Error('task thread exited'));
       const last = attempt >= this.o.maxAttempts;
       const next = { ...state, status: last ? ('failed' as const) : ('queued' as const), error, finishedAt: last ? new Date().toISOString() : null, updatedAt: new Date().toISOString() };
@@ -198,6 +235,9 @@ export class EmbeddedQueue implements JobQueue {
       );
       return;
     }
-    if (outcome !== 'interrupted') this.attempts.delete(key);
+    if (outcome !== 'interrupted') {
+      this.attempts.delete(key);
+      if (!this.closing) this.release(key);
+    }
   }
 }

@@ -11,6 +11,8 @@ export interface ProcessorContext {
   /** ORT intra-op threads for this task's kernels (0: every core). */
   computeThreads: number;
   checkpointEveryMs: number;
+  /** Folder of the embedding models (a model's .onnx and .json description). */
+  modelsDir: string;
 }
 
 /** Runs one task to completion, writing its outputs into the task folder; throws on failure. */

@@ -19,8 +19,12 @@ export interface QueueCounts {
  */
 export interface JobQueue {
   readonly mode: 'embedded' | 'bullmq';
-  /** Hands a created task (queued, in the store) to the workers. Idempotent per task. */
-  enqueue(ref: TaskRef): Promise<void>;
+  /**
+   * Hands a created task (queued, in the store) to the workers. Idempotent per task. `children`
+   * (created tasks too) run first, on any worker; the task starts once each has finished, whether
+   * it succeeded or not (a parent must cope with a failed child, e.g. by doing its part itself).
+   */
+  enqueue(ref: TaskRef, children?: TaskRef[]): Promise<void>;
   /** Stops a task: removed if waiting; a running one stops at its next check. The caller has written the cancel marker. */
   cancel(ref: TaskRef): Promise<void>;
   /** Every state a runner writes (start, progress, end), pushed as it happens. */

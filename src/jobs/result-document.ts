@@ -8,6 +8,8 @@ export type ResultDocument = Omit<SelectionResult, 'representatives' | 'coverage
   coverage: Omit<SelectionResult['coverage'], 'worstCovered'> & {
     worstCovered: Array<SelectionResult['coverage']['worstCovered'][number] & { id: string }>;
   };
+  /** Present when the selection ran on a model's embedding of the images (the selection space is then built from it). */
+  embedding?: { model: string; modelSha256: string; normalize: boolean; dims: number; computedRowsInThisTask: number; seconds: number };
 };
 
 export function resultDocument(

@@ -1,3 +1,4 @@
+import { join } from 'node:path';
 import { createBackend } from '../compute/create-backend.js';
 import { decodeCheckpoint, encodeCheckpoint } from '../core/checkpoint.js';
 import { parseSelectOptions } from '../core/options.js';
@@ -7,7 +8,9 @@ import { openDataset } from '../data/dataset-store.js';
 import { labelCodes } from '../data/label-codes.js';
 import { encodeAssignments } from './assignments.js';
 import type { ProcessorContext } from './processor.js';
-import { resultDocument, resultSummary } from './result-document.js';
+import { EmbeddingCache } from './embedding-cache.js';
+import { ensureEmbedding } from './embedding-step.js';
+import { resultDocument, resultSummary, type ResultDocument } from './result-document.js';
 import type { SelectSpec } from './task.js';
 
 /**
@@ -22,7 +25,20 @@ export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
   const dataset = openDataset(store.storeDir(ref.tenant), spec.datasetId);
   const { meta } = dataset;
   const items = await dataset.readItems();
-  const rows = new DenseRows(dataset.loadMatrix(), meta.rows, meta.cols);
+  let rows: DenseRows;
+  let embedding: ResultDocument['embedding'];
+  if (spec.embedding) {
+    // The embedding first (from the cache, the job's shard tasks, or computed here), then the
+    // selection runs on the embedded vectors in the job's space.
+    const started = performance.now();
+    const cache = new EmbeddingCache(join(store.embeddingsDir(ref.tenant, spec.datasetId), spec.embedding.cacheKey));
+    const thumbs = join(dataset.dir, 'thumbs');
+    const { meta: em, computedRows } = await ensureEmbedding(ctx, cache, thumbs, spec.embedding, meta.rows, (f) => ctx.onProgress({ phase: 'embed', fraction: 0.3 * f }));
+    rows = new DenseRows(await cache.load(em), em.rows, em.dim);
+    embedding = { model: em.model, modelSha256: em.modelSha256, normalize: em.normalize, dims: em.dim, computedRowsInThisTask: computedRows, seconds: (performance.now() - started) / 1000 };
+  } else {
+    rows = new DenseRows(dataset.loadMatrix(), meta.rows, meta.cols);
+  }
   const labels = meta.hasLabels ? labelCodes(items.labels) : null;
 
   const saved = await store.readOptional(ref, 'checkpoint.json');
@@ -37,7 +53,8 @@ export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
       labels,
       signal: ctx.signal,
       sourceIsScratch: true,
-      onProgress: (p) => ctx.onProgress(p),
+      // With an embedding, the selection's own progress fills the last 70%.
+      onProgress: (p) => ctx.onProgress(spec.embedding ? { ...p, fraction: 0.3 + 0.7 * p.fraction } : p),
       checkpoint: {
         everyMs: ctx.checkpointEveryMs,
         resume,
@@ -49,7 +66,7 @@ export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
     });
     if (!assignments) throw new Error('the selection reported no assignments');
     await store.writeAtomic(ref, 'assignments.bin', assignments);
-    const doc = resultDocument(result, items, meta, { id: spec.datasetId, source: meta.sourceName });
+    const doc: ResultDocument = { ...resultDocument(result, items, meta, { id: spec.datasetId, source: meta.sourceName }), ...(embedding ? { embedding } : {}) };
     await store.writeAtomic(ref, 'summary.json', JSON.stringify(resultSummary(doc)) + '\n');
     await store.writeAtomic(ref, 'result.json', JSON.stringify(doc) + '\n');
     await store.removeFile(ref, 'checkpoint.json');

@@ -4,10 +4,13 @@ import { CairnError } from '../errors.js';
 import { ingestProcessor } from './ingest-processor.js';
 import type { Processor } from './processor.js';
 import { selectProcessor } from './select-processor.js';
+import { embedProcessor } from './embed-processor.js';
 import type { TaskStore } from './task-store.js';
 import { isFinal, type TaskError, type TaskKind, type TaskProgress, type TaskRef, type TaskState } from './task.js';
 
-const PROCESSORS: Record<TaskKind, Processor> = { dataset: ingestProcessor, job: selectProcessor };
+const PROCESSORS: Record<TaskKind, Processor> = { dataset: ingestProcessor, job: selectProcessor, embed: embedProcessor };
+
+export const DEFAULT_MODELS_DIR = './models';
 
 export interface AttemptOptions {
   store: TaskStore;
@@ -19,6 +22,8 @@ export interface AttemptOptions {
   shutdown?: AbortSignal;
   computeThreads: number;
   checkpointEveryMs: number;
+  /** Default ./models. */
+  modelsDir?: string;
   /** Every progress update (after it has been written to state.json, at most ~4 a second). */
   onState?: (state: TaskState) => void;
   log?: Logger;
@@ -88,7 +93,7 @@ export async function runAttempt(o: AttemptOptions): Promise<{ outcome: AttemptO
     await write({ ...state, status: 'running', attempt: o.attempt, startedAt: state.startedAt ?? now(), updatedAt: now(), runner: { host: hostname(), pid: process.pid } });
     o.onState?.(state);
     o.log?.info({ task: ref, attempt: o.attempt }, 'task started');
-    await PROCESSORS[ref.kind]({ store, ref, signal: stop.signal, onProgress, computeThreads: o.computeThreads, checkpointEveryMs: o.checkpointEveryMs });
+    await PROCESSORS[ref.kind]({ store, ref, signal: stop.signal, onProgress, computeThreads: o.computeThreads, checkpointEveryMs: o.checkpointEveryMs, modelsDir: o.modelsDir ?? DEFAULT_MODELS_DIR });
     await writing;
     await write({ ...state, status: 'completed', progress: { ...state.progress, phase: ref.kind === 'job' ? 'done' : 'ingest', fraction: 1 }, error: null, finishedAt: now(), updatedAt: now() });
     o.log?.info({ task: ref, attempt: o.attempt }, 'task completed');

@@ -2,7 +2,7 @@ import { randomBytes } from 'node:crypto';
 import { mkdir, open, readdir, readFile, rename, rm, stat, unlink, writeFile } from 'node:fs/promises';
 import { join } from 'node:path';
 import { CairnError } from '../errors.js';
-import type { TaskKind, TaskRef, TaskSpec, TaskState } from './task.js';
+import { TASK_KINDS, type TaskKind, type TaskRef, type TaskSpec, type TaskState } from './task.js';
 
 /**
  * Where everything lives under the data folder:
@@ -10,6 +10,8 @@ import type { TaskKind, TaskRef, TaskSpec, TaskState } from './task.js';
  *   uploads/                              uploads being received (deleted once their task exists)
  *   tenants/<tenant>/store/<datasetId>/   stored datasets (matrix.f32, items.jsonl, thumbs/, meta.json)
  *   tenants/<tenant>/dataset/<id>/        ingestion task: spec.json, state.json, source (the upload, until ingested)
+ *   tenants/<tenant>/embeddings/<dataset>/ cached embeddings per model (see EmbeddingCache)
+ *   tenants/<tenant>/embed/<id>/          embedding shard task: spec.json, state.json
  *   tenants/<tenant>/job/<id>/            selection task: spec.json, state.json, checkpoint.json,
  *                                         result.json, summary.json, assignments.bin, cancel (a marker)
  *   idempotency/<tenant>/<hash>.json      first answers to Idempotency-Key requests
@@ -23,6 +25,11 @@ export class TaskStore {
 
   storeDir(tenant: string): string {
     return join(this.dataDir, 'tenants', tenant, 'store');
+  }
+
+  /** Cached embeddings of one dataset (see EmbeddingCache). */
+  embeddingsDir(tenant: string, datasetId: string): string {
+    return join(this.dataDir, 'tenants', tenant, 'embeddings', datasetId);
   }
 
   uploadsDir(): string {
@@ -183,7 +190,7 @@ export class TaskStore {
     };
     await sweep(this.uploadsDir(), () => true);
     for (const tenant of await this.tenants()) {
-      for (const kind of ['dataset', 'job'] as const) await sweep(join(this.dataDir, 'tenants', tenant, kind), (n) => n.includes('.tmp-') || n.includes('.trash-'));
+      for (const kind of TASK_KINDS) await sweep(join(this.dataDir, 'tenants', tenant, kind), (n) => n.includes('.tmp-') || n.includes('.trash-'));
       await sweep(this.storeDir(tenant), (n) => n.startsWith('.tmp-') || n.startsWith('.trash-'));
     }
     return removed;
@@ -193,5 +200,6 @@ export class TaskStore {
 export type TaskFile = 'spec.json' | 'state.json' | 'checkpoint.json' | 'result.json' | 'summary.json' | 'assignments.bin' | 'cancel' | 'source';
 
 export function notFound(ref: TaskRef): CairnError {
-  return ref.kind === 'dataset' ? new CairnError('DATASET_NOT_FOUND', undefined, { datasetId: ref.id }) : new CairnError('JOB_NOT_FOUND', undefined, { jobId: ref.id });
+  if (ref.kind === 'dataset') return new CairnError('DATASET_NOT_FOUND', undefined, { datasetId: ref.id });
+  return new CairnError('JOB_NOT_FOUND', undefined, { jobId: ref.id });
 }

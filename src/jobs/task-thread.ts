@@ -16,6 +16,7 @@ export interface TaskThreadData {
   maxAttempts: number;
   computeThreads: number;
   checkpointEveryMs: number;
+  modelsDir?: string;
   logLevel: string;
 }
 
@@ -36,6 +37,7 @@ const result = await runAttempt({
   shutdown: shutdown.signal,
   computeThreads: data.computeThreads,
   checkpointEveryMs: data.checkpointEveryMs,
+  modelsDir: data.modelsDir,
   log,
   onState: (state) => port.postMessage({ type: 'state', state } satisfies TaskThreadMessage),
 });

@@ -10,7 +10,9 @@ import type { ErrorCode } from '../errors.js';
  * state.json (written by whoever runs it) and its outputs, so the API, the embedded queue and any
  * number of workers sharing the data folder agree on it without a database.
  */
-export type TaskKind = 'dataset' | 'job';
+export type TaskKind = 'dataset' | 'job' | 'embed';
+
+export const TASK_KINDS: readonly TaskKind[] = ['dataset', 'job', 'embed'];
 
 export interface TaskRef {
   kind: TaskKind;
@@ -29,20 +31,44 @@ export interface IngestSpec {
   createdAt: string;
 }
 
+/** Which embedding a selection runs on, fixed when the job is created. */
+export interface EmbeddingChoice {
+  model: string;
+  /** SHA-256 of the model file the job was created with: a replaced file is a different embedding. */
+  modelSha256: string;
+  normalize: boolean;
+  /** Folder name of the cached embedding (see embedding-cache.ts). */
+  cacheKey: string;
+  /** Row ranges embedded by the job's shard tasks (children that run before it, on any worker). */
+  shards: Array<{ id: string; start: number; count: number }>;
+}
+
 export interface SelectSpec {
   kind: 'job';
   datasetId: string;
   options: SelectOptionsInput;
+  embedding?: EmbeddingChoice;
   name?: string;
   createdAt: string;
 }
 
-export type TaskSpec = IngestSpec | SelectSpec;
+/** One shard of an embedding: rows start..start+count−1 of a dataset, run as a child of a selection job. */
+export interface EmbedSpec {
+  kind: 'embed';
+  datasetId: string;
+  parentJobId: string;
+  embedding: Omit<EmbeddingChoice, 'shards'>;
+  start: number;
+  count: number;
+  createdAt: string;
+}
+
+export type TaskSpec = IngestSpec | SelectSpec | EmbedSpec;
 
 export type TaskStatus = 'queued' | 'running' | 'completed' | 'failed' | 'cancelled';
 
 export interface TaskProgress {
-  phase: SelectPhase | 'queued' | 'ingest';
+  phase: SelectPhase | 'queued' | 'ingest' | 'embed';
   /** Overall fraction done, 0..1 (approximate). */
   fraction: number;
   iteration?: number;
@@ -85,6 +111,6 @@ export function taskKey(ref: TaskRef): string {
 
 export function parseTaskKey(key: string): TaskRef {
   const [kind, tenant, id] = key.split(':');
-  if ((kind !== 'dataset' && kind !== 'job') || !tenant || !id) throw new Error(`bad task key ${key}`);
-  return { kind, tenant, id };
+  if (!TASK_KINDS.includes(kind as TaskKind) || !tenant || !id) throw new Error(`bad task key ${key}`);
+  return { kind: kind as TaskKind, tenant, id };
 }

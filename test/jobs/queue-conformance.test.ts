@@ -69,6 +69,21 @@ describe.each(queueFactories())('queue conformance: $name', (factory) => {
     expect(assignments.length).toBe(data.rows * 8);
   }, 120_000);
 
+  it('runs a task’s children first: it starts only once every child has finished, even a failed one', async () => {
+    const a = await createSelect(store, tenant, datasetId, { k: 3, seed: 1, maxIterations: 300 });
+    const bad = await createSelect(store, tenant, 'no-such-dataset', { k: 3 });
+    const parent = await createSelect(store, tenant, datasetId, { k: 2, maxIterations: 50 });
+    await h.queue.enqueue(parent, [a, bad]);
+    const p = await waitFor(store, h.queue, parent);
+    expect(p.status).toBe('completed');
+    const [sa, sb] = await Promise.all([store.readState(a), store.readState(bad)]);
+    expect(sa.status).toBe('completed');
+    expect(sb.status).toBe('failed');
+    expect(sb.error?.code).toBe('DATASET_NOT_FOUND');
+    expect(Date.parse(p.startedAt!)).toBeGreaterThanOrEqual(Date.parse(sa.finishedAt!));
+    expect(Date.parse(p.startedAt!)).toBeGreaterThanOrEqual(Date.parse(sb.finishedAt!));
+  }, 60_000);
+
   it('fails a task with bad data at once, without retries, with the catalogued code', async () => {
     const bad = await createIngest(store, tenant, Buffer.from('not an npy file at all'), 'broken.npy');
     await h.queue.enqueue(bad);

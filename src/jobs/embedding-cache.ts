@@ -1,0 +1,109 @@
+import { createHash, randomBytes } from 'node:crypto';
+import { createReadStream, createWriteStream } from 'node:fs';
+import { mkdir, open, readFile, rename, rm, stat, writeFile } from 'node:fs/promises';
+import { join } from 'node:path';
+import { pipeline } from 'node:stream/promises';
+import type { ModelDescription } from '../embed/model-description.js';
+
+/**
+ * Embeddings computed once per (dataset, model file, description, normalization) and shared by
+ * every later job: `tenants/<tenant>/embeddings/<datasetId>/<key>/` holds matrix.f32 (rows × dim,
+ * float32, row-major) and meta.json once complete, and shards/<start>-<count>.f32 while shard
+ * tasks fill it. Every file is written under a temporary name and renamed into place, so a shard
+ * or matrix that exists is whole, and two workers computing the same shard cannot corrupt it.
+ */
+export interface EmbeddingMeta {
+  model: string;
+  modelSha256: string;
+  normalize: boolean;
+  rows: number;
+  dim: number;
+  createdAt: string;
+}
+
+export function embeddingCacheKey(modelSha256: string, description: ModelDescription, normalize: boolean): string {
+  const what = JSON.stringify({ modelSha256, input: description.input, output: description.output, normalize });
+  return createHash('sha256').update(what).digest('hex').slice(0, 32);
+}
+
+export class EmbeddingCache {
+  constructor(readonly dir: string) {}
+
+  get matrixPath(): string {
+    return join(this.dir, 'matrix.f32');
+  }
+
+  shardPath(start: number, count: number): string {
+    return join(this.dir, 'shards', `${start}-${count}.f32`);
+  }
+
+  async meta(): Promise<EmbeddingMeta | null> {
+    try {
+      return JSON.parse(await readFile(join(this.dir, 'meta.json'), 'utf8')) as EmbeddingMeta;
+    } catch {
+      return null;
+    }
+  }
+
+  async hasShard(start: number, count: number): Promise<boolean> {
+    return exists(this.shardPath(start, count));
+  }
+
+  async writeShard(start: number, count: number, vectors: Float32Array): Promise<void> {
+    await mkdir(join(this.dir, 'shards'), { recursive: true });
+    await writeAtomic(this.shardPath(start, count), new Uint8Array(vectors.buffer, vectors.byteOffset, vectors.byteLength));
+  }
+
+  /** Joins the shards (in row order) into matrix.f32, records meta.json, then drops the shards. */
+  async assemble(shards: Array<{ start: number; count: number }>, meta: EmbeddingMeta): Promise<void> {
+    const tmp = `${this.matrixPath}.tmp-${randomBytes(6).toString('hex')}`;
+    const out = createWriteStream(tmp);
+    try {
+      for (const s of [...shards].sort((a, b) => a.start - b.start)) {
+        await pipeline(createReadStream(this.shardPath(s.start, s.count)), out, { end: false });
+      }
+      await new Promise<void>((resolve, reject) => out.end((err?: Error | null) => (err ? reject(err) : resolve())));
+      const size = (await stat(tmp)).size;
+      if (size !== meta.rows * meta.dim * 4) throw new Error(`embedding shards hold ${size} bytes, expected ${meta.rows * meta.dim * 4}`);
+      await rename(tmp, this.matrixPath);
+    } catch (err) {
+      out.destroy();
+      await rm(tmp, { force: true });
+      throw err;
+    }
+    await writeAtomic(join(this.dir, 'meta.json'), JSON.stringify(meta, null, 2) + '\n');
+    await rm(join(this.dir, 'shards'), { recursive: true, force: true });
+  }
+
+  async load(meta: EmbeddingMeta): Promise<Float32Array> {
+    const out = new Float32Array(meta.rows * meta.dim);
+    const fh = await open(this.matrixPath, 'r');
+    try {
+      const bytes = new Uint8Array(out.buffer);
+      let done = 0;
+      while (done < bytes.length) {
+        const { bytesRead } = await fh.read(bytes, done, Math.min(1 << 30, bytes.length - done), done);
+        if (bytesRead === 0) throw new Error('embedding matrix ended early');
+        done += bytesRead;
+      }
+    } finally {
+      await fh.close();
+    }
+    return out;
+  }
+}
+
+async function exists(path: string): Promise<boolean> {
+  try {
+    await stat(path);
+    return true;
+  } catch {
+    return false;
+  }
+}
+
+async function writeAtomic(path: string, data: string | Uint8Array): Promise<void> {
+  const tmp = `${path}.tmp-${randomBytes(6).toString('hex')}`;
+  await writeFile(tmp, data);
+  await rename(tmp, path);
+}
