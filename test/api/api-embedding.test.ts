@@ -113,6 +113,25 @@ describe.each(modes)('API: embedding and PCA spaces ($name)', (mode) => {
     expect(new Set(result.representatives.map((r) => r.label))).toEqual(new Set(['red', 'green', 'blue']));
   }, 60_000);
 
+  it('cancelling a job stops its embedding shards: none is left queued or running, and the job never starts', async () => {
+    // normalize: true is another cached embedding, so this job queues fresh shards.
+    const job = await request(url).post('/v1/jobs').send({ datasetId: images, k: 3, embedding: { model: DEMO_MODEL_NAME, normalize: true } });
+    expect(job.body.embedding.shards).toHaveLength(3);
+    expect((await request(url).post(`/v1/jobs/${job.body.id}/cancel`)).status).toBe(202);
+    const final = await settle(url, `/v1/jobs/${job.body.id}`);
+    expect(final.status).toBe('cancelled');
+    expect(final.startedAt).toBeNull();
+    // A running shard stops at its next check (well under a second); none may go on queued or running.
+    let shards: Array<{ status: string }> = [];
+    for (let i = 0; i < 50; i++) {
+      shards = (await request(url).get(`/v1/jobs/${job.body.id}`)).body.embedding.shards;
+      if (shards.every((sh) => ['cancelled', 'completed', 'failed'].includes(sh.status))) break;
+      await new Promise((r) => setTimeout(r, 100));
+    }
+    for (const sh of shards) expect(['cancelled', 'completed']).toContain(sh.status);
+    expect(shards.some((sh) => sh.status === 'cancelled')).toBe(true);
+  }, 60_000);
+
   it('refuses unknown and invalid models, and embeddings of vector datasets', async () => {
     const unknown = await request(url).post('/v1/jobs').send({ datasetId: images, k: 2, embedding: { model: 'no-such-model' } });
     expect([unknown.status, unknown.body.error.code]).toEqual([404, 'MODEL_NOT_FOUND']);
