@@ -4,9 +4,11 @@
 // ingestion, asks for 12 representatives, follows the job's progress, then saves
 //   demo/parts-result.json          the result (representatives, weights, coverage, D²)
 //   demo/parts-contact-sheet.png    the representatives' pictures with rank and weight
+//   demo/parts-embedding-result.json the same selection in the embedding space of the project's demo
+//                                    model (built in code into demo/models/, src/embed/demo-model.ts)
 // and stops the server, deleting its data folder. Run `node scripts/demo-data.mjs` first.
 import { spawn } from 'node:child_process';
-import { mkdtempSync, openAsBlob, rmSync, writeFileSync } from 'node:fs';
+import { mkdirSync, mkdtempSync, openAsBlob, rmSync, writeFileSync } from 'node:fs';
 import { createServer } from 'node:net';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
@@ -55,11 +57,18 @@ async function waitReady(url) {
   }
 }
 
+const { buildDemoModel, DEMO_MODEL_NAME } = await import('../dist/embed/demo-model.js');
+const modelsDir = 'demo/models';
+mkdirSync(modelsDir, { recursive: true });
+const model = buildDemoModel();
+writeFileSync(join(modelsDir, `${DEMO_MODEL_NAME}.onnx`), model.onnx);
+writeFileSync(join(modelsDir, `${DEMO_MODEL_NAME}.json`), JSON.stringify(model.description, null, 2) + '\n');
+
 const dataDir = mkdtempSync(join(tmpdir(), 'cairn-demo-'));
 const port = await freePort();
 const base = `http://127.0.0.1:${port}`;
 const server = spawn(process.execPath, ['dist/cli/main.js', 'serve'], {
-  env: { ...process.env, CAIRN_DATA_DIR: dataDir, CAIRN_PORT: String(port), LOG_LEVEL: 'warn' },
+  env: { ...process.env, CAIRN_DATA_DIR: dataDir, CAIRN_PORT: String(port), CAIRN_MODELS_DIR: modelsDir, LOG_LEVEL: 'warn' },
   stdio: ['ignore', 'inherit', 'inherit'],
 });
 const exited = new Promise((r) => server.once('exit', r));
@@ -77,31 +86,36 @@ try {
   if (ds.status !== 'completed') throw new Error(`ingestion ${ds.status}: ${JSON.stringify(ds.error)}`);
   console.log(`dataset ready: ${ds.rows} pictures, ${ds.cols} features each`);
 
-  const job = await json(
-    await fetch(`${base}/v1/jobs`, { method: 'POST', headers: { 'content-type': 'application/json' }, body: JSON.stringify({ datasetId: ds.id, k: K, name: 'demo' }) }),
-  );
-  let lastPhase = '';
-  const done = await until(`${base}/v1/jobs/${job.id}`, (b) => {
-    const p = b.progress;
-    if (p.phase !== lastPhase) {
-      lastPhase = p.phase;
-      process.stdout.write(`  job ${job.id}: ${b.status}, ${p.phase} (${Math.round(p.fraction * 100)}%)\n`);
-    }
-    return !['queued', 'running'].includes(b.status);
-  });
-  if (done.status !== 'completed') throw new Error(`job ${done.status}: ${JSON.stringify(done.error)}`);
+  /** Creates a job, follows it to the end, and returns its result. */
+  async function runJob(body, title) {
+    const job = await json(await fetch(`${base}/v1/jobs`, { method: 'POST', headers: { 'content-type': 'application/json' }, body: JSON.stringify(body) }));
+    console.log(`\n${title}: job ${job.id}`);
+    let lastPhase = '';
+    const done = await until(`${base}/v1/jobs/${job.id}`, (b) => {
+      const p = b.progress;
+      if (p.phase !== lastPhase) {
+        lastPhase = p.phase;
+        process.stdout.write(`  ${b.status}, ${p.phase} (${Math.round(p.fraction * 100)}%)\n`);
+      }
+      return !['queued', 'running'].includes(b.status);
+    });
+    if (done.status !== 'completed') throw new Error(`job ${done.status}: ${JSON.stringify(done.error)}`);
+    const result = await json(await fetch(`${base}/v1/jobs/${job.id}/result`));
+    console.log(`${K} representatives of ${result.rows} pictures (${result.dims}-d ${result.embedding ? `embedding of ${result.embedding.model}` : result.space} space):`);
+    console.log('rank  weight  share   label');
+    for (const r of result.representatives) console.log(`${String(r.rank).padStart(4)}  ${r.weight.toFixed(3)}   ${r.share.toFixed(3)}   ${r.label ?? '-'}`);
+    const d = result.discrepancy;
+    console.log(`D² = ${d.value.toPrecision(4)}; random ${K}-subsets: ${d.random.median.toPrecision(4)} (ratio ${d.ratioToRandom?.toFixed(3) ?? 'n/a'})`);
+    return { job, result };
+  }
 
-  const result = await json(await fetch(`${base}/v1/jobs/${job.id}/result`));
-  writeFileSync('demo/parts-result.json', JSON.stringify(result, null, 2) + '\n');
-  const sheet = await fetch(`${base}/v1/jobs/${job.id}/contact-sheet.png`);
+  const pixels = await runJob({ datasetId: ds.id, k: K, name: 'demo' }, 'pixels (32×32 rgb)');
+  writeFileSync('demo/parts-result.json', JSON.stringify(pixels.result, null, 2) + '\n');
+  const sheet = await fetch(`${base}/v1/jobs/${pixels.job.id}/contact-sheet.png`);
   writeFileSync('demo/parts-contact-sheet.png', Buffer.from(await sheet.arrayBuffer()));
-
-  console.log(`\n${K} representatives of ${result.rows} pictures:`);
-  console.log('rank  weight  share   label');
-  for (const r of result.representatives) console.log(`${String(r.rank).padStart(4)}  ${r.weight.toFixed(3)}   ${r.share.toFixed(3)}   ${r.label ?? '-'}`);
-  const d = result.discrepancy;
-  console.log(`D² = ${d.value.toPrecision(4)}; random ${K}-subsets: ${d.random.median.toPrecision(4)} (ratio ${d.ratioToRandom?.toFixed(3) ?? 'n/a'})`);
-  console.log('wrote demo/parts-result.json and demo/parts-contact-sheet.png');
+  const embedded = await runJob({ datasetId: ds.id, k: K, name: 'demo, embedding', embedding: { model: DEMO_MODEL_NAME } }, `embedding space of ${DEMO_MODEL_NAME}`);
+  writeFileSync('demo/parts-embedding-result.json', JSON.stringify(embedded.result, null, 2) + '\n');
+  console.log('\nwrote demo/parts-result.json, demo/parts-contact-sheet.png and demo/parts-embedding-result.json');
 } finally {
   server.kill('SIGTERM');
   await exited;
