@@ -17,6 +17,7 @@ import { jobRoutes } from './job-routes.js';
 import type { Metrics } from './metrics.js';
 import type { ModelRegistry } from '../embed/model-registry.js';
 import { modelRoutes } from './model-routes.js';
+import { reviewRoutes } from './review-routes.js';
 import { opsRoutes } from './ops-routes.js';
 import { EventStreams } from './event-streams.js';
 
@@ -131,6 +132,7 @@ export async function buildApp(deps: AppDeps): Promise<App> {
     datasetRoutes(v1 as App, deps, streams);
     jobRoutes(v1 as App, deps, streams);
     modelRoutes(v1 as App, deps);
+    reviewRoutes(v1 as App, deps);
   });
   opsRoutes(app, deps);
   return app;
