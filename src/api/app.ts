@@ -20,6 +20,7 @@ import { modelRoutes } from './model-routes.js';
 import { reviewRoutes } from './review-routes.js';
 import { opsRoutes } from './ops-routes.js';
 import { EventStreams } from './event-streams.js';
+import { TaskReader } from './task-reader.js';
 
 export type App = FastifyInstance<RawServerDefault, IncomingMessage, ServerResponse, FastifyBaseLogger, ZodTypeProvider>;
 
@@ -36,6 +37,11 @@ export interface AppDeps {
   version: string;
   /** Set to true when shutdown begins: requests from then on get SERVICE_SHUTTING_DOWN. */
   lifecycle?: { closing: boolean };
+}
+
+/** What the route modules get: the app's dependencies plus the cached reader of task files. */
+export interface RouteDeps extends AppDeps {
+  reader: TaskReader;
 }
 
 declare module 'fastify' {
@@ -127,12 +133,13 @@ export async function buildApp(deps: AppDeps): Promise<App> {
   });
 
   const streams = new EventStreams(deps.queue);
+  const routeDeps: RouteDeps = { ...deps, reader: new TaskReader(deps.store, deps.queue) };
   app.addHook('preClose', async () => streams.closeAll());
   await app.register(async (v1) => {
-    datasetRoutes(v1 as App, deps, streams);
-    jobRoutes(v1 as App, deps, streams);
-    modelRoutes(v1 as App, deps);
-    reviewRoutes(v1 as App, deps);
+    datasetRoutes(v1 as App, routeDeps, streams);
+    jobRoutes(v1 as App, routeDeps, streams);
+    modelRoutes(v1 as App, routeDeps);
+    reviewRoutes(v1 as App, routeDeps);
   });
   opsRoutes(app, deps);
   return app;

@@ -10,7 +10,7 @@ import { deleteDataset } from '../data/dataset-store.js';
 import { CairnError } from '../errors.js';
 import type { IngestSpec, TaskRef } from '../jobs/task.js';
 import { isFinal } from '../jobs/task.js';
-import type { App, AppDeps } from './app.js';
+import type { App, RouteDeps } from './app.js';
 import type { EventStreams } from './event-streams.js';
 import { fingerprintOf } from './idempotency.js';
 import { datasetView, jobView } from './resources.js';
@@ -19,8 +19,8 @@ import { newId } from './task-ids.js';
 
 const errors = { 400: errorBody, 401: errorBody, 404: errorBody, 409: errorBody, 413: errorBody, 415: errorBody, 422: errorBody, 429: errorBody };
 
-export function datasetRoutes(app: App, deps: AppDeps, streams: EventStreams): void {
-  const { store, queue, idempotency, metrics } = deps;
+export function datasetRoutes(app: App, deps: RouteDeps, streams: EventStreams): void {
+  const { store, queue, idempotency, metrics, reader } = deps;
   const ref = (tenant: string, id: string): TaskRef => ({ kind: 'dataset', tenant, id });
   const existing = async (tenant: string, id: string): Promise<TaskRef> => {
     const r = ref(tenant, id);
@@ -92,7 +92,7 @@ export function datasetRoutes(app: App, deps: AppDeps, streams: EventStreams): v
           const r = ref(tenant, id);
           await store.create(r, spec, { source: uploadPath });
           await queue.enqueue(r);
-          return { status: 202, body: await datasetView(store, r) };
+          return { status: 202, body: await datasetView(reader, r) };
         };
         const key = idempotencyKey(req.headers['idempotency-key']);
         const answer = key ? await idempotency.run(tenant, key, fingerprintOf({ sha256: received.sha256, name: received.name, fields: f }), create) : await create();
@@ -105,7 +105,7 @@ export function datasetRoutes(app: App, deps: AppDeps, streams: EventStreams): v
   );
 
   app.get('/v1/datasets', { schema: { summary: 'List datasets', tags: ['datasets'], querystring: listQuery, response: { 200: z.object({ datasets: z.array(datasetResource) }), ...errors } } }, async (req) => {
-    const views = await Promise.all((await store.list(req.tenant, 'dataset')).map((id) => datasetView(store, ref(req.tenant, id)).catch(() => null)));
+    const views = await Promise.all((await store.list(req.tenant, 'dataset')).map((id) => datasetView(reader, ref(req.tenant, id)).catch(() => null)));
     const datasets = views
       .filter((v): v is NonNullable<typeof v> => v !== null && (!req.query.status || v.status === req.query.status))
       .sort((a, b) => b.createdAt.localeCompare(a.createdAt))
@@ -114,7 +114,7 @@ export function datasetRoutes(app: App, deps: AppDeps, streams: EventStreams): v
   });
 
   app.get('/v1/datasets/:id', { schema: { summary: 'Get a dataset', tags: ['datasets'], params: idParams, response: { 200: datasetResource, ...errors } } }, async (req) => {
-    return datasetView(store, await existing(req.tenant, req.params.id));
+    return datasetView(reader, ref(req.tenant, req.params.id));
   });
 
   app.get(
@@ -122,7 +122,7 @@ export function datasetRoutes(app: App, deps: AppDeps, streams: EventStreams): v
     { schema: { summary: 'Follow a dataset’s ingestion (Server-Sent Events)', description: '`state` events carry the dataset resource; an `end` event follows the final state, then the stream closes.', tags: ['datasets'], params: idParams, produces: ['text/event-stream'] } },
     async (req, reply) => {
       const r = await existing(req.tenant, req.params.id);
-      await streams.stream(req, reply, r, () => datasetView(store, r));
+      await streams.stream(req, reply, r, () => datasetView(reader, r));
     },
   );
 
@@ -132,7 +132,7 @@ export function datasetRoutes(app: App, deps: AppDeps, streams: EventStreams): v
     async (req, reply) => {
       const r = await existing(req.tenant, req.params.id);
       for (const jobId of await store.list(req.tenant, 'job')) {
-        const job = await jobView(store, { kind: 'job', tenant: req.tenant, id: jobId }).catch(() => null);
+        const job = await jobView(reader, { kind: 'job', tenant: req.tenant, id: jobId }).catch(() => null);
         if (job && job.datasetId === r.id && !isFinal(job.status)) throw new CairnError('DATASET_IN_USE', undefined, { jobId });
       }
       const state = await store.readState(r);
@@ -141,6 +141,7 @@ export function datasetRoutes(app: App, deps: AppDeps, streams: EventStreams): v
         await queue.cancel(r);
       }
       await store.remove(r);
+      reader.forget(r);
       await deleteDataset(store.storeDir(req.tenant), r.id).catch((err: unknown) => {
         if (!(err instanceof CairnError && err.code === 'DATASET_NOT_FOUND')) throw err;
       });

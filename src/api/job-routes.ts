@@ -9,7 +9,7 @@ import type { ResultDocument } from '../jobs/result-document.js';
 import type { SelectSpec, TaskRef } from '../jobs/task.js';
 import { isFinal } from '../jobs/task.js';
 import { renderContactSheet } from '../report/contact-sheet.js';
-import type { App, AppDeps } from './app.js';
+import type { App, RouteDeps } from './app.js';
 import { idempotencyKey } from './dataset-routes.js';
 import type { EventStreams } from './event-streams.js';
 import { fingerprintOf } from './idempotency.js';
@@ -21,8 +21,8 @@ import { removeJob, shardRanges } from '../jobs/job-files.js';
 
 const errors = { 400: errorBody, 401: errorBody, 404: errorBody, 409: errorBody, 422: errorBody, 429: errorBody };
 
-export function jobRoutes(app: App, deps: AppDeps, streams: EventStreams): void {
-  const { store, queue, idempotency } = deps;
+export function jobRoutes(app: App, deps: RouteDeps, streams: EventStreams): void {
+  const { store, queue, idempotency, reader } = deps;
   const ref = (tenant: string, id: string): TaskRef => ({ kind: 'job', tenant, id });
   const existing = async (tenant: string, id: string): Promise<TaskRef> => {
     const r = ref(tenant, id);
@@ -68,7 +68,7 @@ export function jobRoutes(app: App, deps: AppDeps, streams: EventStreams): void 
       const create = async () => {
         const dsRef: TaskRef = { kind: 'dataset', tenant, id: datasetId };
         if (!(await store.exists(dsRef))) throw new CairnError('DATASET_NOT_FOUND', undefined, { datasetId });
-        const ds = await datasetView(store, dsRef);
+        const ds = await datasetView(reader, dsRef);
         if (ds.status !== 'completed' || ds.rows === null) throw new CairnError('DATASET_NOT_READY', `The dataset is ${ds.status}.`, { datasetId, status: ds.status });
         if (options.k > ds.rows) throw new CairnError('K_TOO_LARGE', `k = ${options.k} but the dataset has ${ds.rows} rows.`, { k: options.k, rows: ds.rows });
         let cols = ds.cols!;
@@ -99,7 +99,7 @@ export function jobRoutes(app: App, deps: AppDeps, streams: EventStreams): void 
         const spec: SelectSpec = { kind: 'job', datasetId, options, name, ...(embedding ? { embedding } : {}), createdAt: new Date().toISOString() };
         await store.create(r, spec);
         await queue.enqueue(r, children);
-        return { status: 202, body: await jobView(store, r) };
+        return { status: 202, body: await jobView(reader, r) };
       };
       const key = idempotencyKey(req.headers['idempotency-key']);
       const answer = key ? await idempotency.run(tenant, key, fingerprintOf(req.body), create) : await create();
@@ -109,7 +109,7 @@ export function jobRoutes(app: App, deps: AppDeps, streams: EventStreams): void 
 
   app.get('/v1/jobs', { schema: { summary: 'List selection jobs', tags: ['jobs'], querystring: jobListQuery, response: { 200: z.object({ jobs: z.array(jobResource) }), ...errors } } }, async (req) => {
     const q = req.query;
-    const views = await Promise.all((await store.list(req.tenant, 'job')).map((id) => jobView(store, ref(req.tenant, id)).catch(() => null)));
+    const views = await Promise.all((await store.list(req.tenant, 'job')).map((id) => jobView(reader, ref(req.tenant, id)).catch(() => null)));
     const jobs = views
       .filter((v): v is NonNullable<typeof v> => v !== null && (!q.status || v.status === q.status) && (!q.datasetId || v.datasetId === q.datasetId))
       .sort((a, b) => b.createdAt.localeCompare(a.createdAt))
@@ -118,7 +118,8 @@ export function jobRoutes(app: App, deps: AppDeps, streams: EventStreams): void 
   });
 
   app.get('/v1/jobs/:id', { schema: { summary: 'Get a job (status and progress)', tags: ['jobs'], params: idParams, response: { 200: jobResource, ...errors } } }, async (req) => {
-    return jobView(store, await existing(req.tenant, req.params.id));
+    // No separate existence check: reading the spec answers JOB_NOT_FOUND for a missing job.
+    return jobView(reader, ref(req.tenant, req.params.id));
   });
 
   app.get(
@@ -126,7 +127,7 @@ export function jobRoutes(app: App, deps: AppDeps, streams: EventStreams): void 
     { schema: { summary: 'Follow a job (Server-Sent Events)', description: '`state` events carry the job resource (status, progress with phase, iteration, loss estimate and ETA); an `end` event follows the final state, then the stream closes.', tags: ['jobs'], params: idParams, produces: ['text/event-stream'] } },
     async (req, reply) => {
       const r = await existing(req.tenant, req.params.id);
-      await streams.stream(req, reply, r, () => jobView(store, r));
+      await streams.stream(req, reply, r, () => jobView(reader, r));
     },
   );
 
@@ -135,7 +136,7 @@ export function jobRoutes(app: App, deps: AppDeps, streams: EventStreams): void 
     const state = await store.readState(r);
     if (isFinal(state.status)) throw new CairnError('JOB_FINISHED', `The job is ${state.status}.`, { jobId: r.id, status: state.status });
     await cancelJob(r);
-    return reply.status(202).send(await jobView(store, r));
+    return reply.status(202).send(await jobView(reader, r));
   });
 
   app.delete('/v1/jobs/:id', { schema: { summary: 'Delete a job', description: 'Cancels it if needed and deletes its record, checkpoint, result and assignments.', tags: ['jobs'], params: idParams, response: { 204: z.null(), ...errors } } }, async (req, reply) => {
@@ -143,6 +144,7 @@ export function jobRoutes(app: App, deps: AppDeps, streams: EventStreams): void 
     const state = await store.readState(r);
     if (!isFinal(state.status)) await cancelJob(r);
     await removeJob(store, r);
+    reader.forget(r);
     return reply.status(204).send(null);
   });
 
@@ -182,7 +184,7 @@ export function jobRoutes(app: App, deps: AppDeps, streams: EventStreams): void 
     async (req, reply) => {
       const { r, spec } = await completed(req.tenant, req.params.id);
       const thumbs = join(store.storeDir(req.tenant), spec.datasetId, 'thumbs');
-      const ds = await datasetView(store, { kind: 'dataset', tenant: req.tenant, id: spec.datasetId }).catch(() => null);
+      const ds = await datasetView(reader, { kind: 'dataset', tenant: req.tenant, id: spec.datasetId }).catch(() => null);
       if (!ds || ds.hasImages === null) throw new CairnError('DATASET_NOT_FOUND', 'The job’s dataset has been deleted.', { datasetId: spec.datasetId });
       if (!ds.hasImages) throw new CairnError('DATASET_HAS_NO_IMAGES', undefined, { datasetId: spec.datasetId });
       const reps = (await readResult(r)).representatives.slice(0, req.query.limit);

@@ -1,8 +1,8 @@
 import { z } from 'zod';
-import type { App, AppDeps } from './app.js';
+import type { App, RouteDeps } from './app.js';
 import { errorBody, modelEntry } from './schemas.js';
 
-export function modelRoutes(app: App, deps: AppDeps): void {
+export function modelRoutes(app: App, deps: RouteDeps): void {
   app.get(
     '/v1/models',
     {

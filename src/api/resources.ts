@@ -1,28 +1,17 @@
-import { existsSync, readFileSync } from 'node:fs';
-import { join } from 'node:path';
 import type { z } from 'zod';
-import type { StoredDatasetMeta } from '../data/stored-dataset.js';
-import type { TaskStore } from '../jobs/task-store.js';
 import type { IngestSpec, SelectSpec, TaskRef, TaskState } from '../jobs/task.js';
 import type { datasetResource, jobResource } from './schemas.js';
+import type { TaskReader } from './task-reader.js';
 
 export type DatasetResource = z.infer<typeof datasetResource>;
 export type JobResource = z.infer<typeof jobResource>;
 
 /** The dataset as the API shows it: its ingestion task's state plus, once stored, its description. */
-export async function datasetView(store: TaskStore, ref: TaskRef): Promise<DatasetResource> {
-  const [spec, state] = await Promise.all([store.readSpec<IngestSpec>(ref), store.readState(ref)]);
-  let meta: StoredDatasetMeta | null = null;
-  let hasImages: boolean | null = null;
-  if (state.status === 'completed') {
-    const dir = join(store.storeDir(ref.tenant), ref.id);
-    try {
-      meta = JSON.parse(readFileSync(join(dir, 'meta.json'), 'utf8')) as StoredDatasetMeta;
-      hasImages = existsSync(join(dir, 'thumbs'));
-    } catch {
-      meta = null;
-    }
-  }
+export async function datasetView(reader: TaskReader, ref: TaskRef): Promise<DatasetResource> {
+  const [spec, state] = await Promise.all([reader.readSpec<IngestSpec>(ref), reader.readState(ref)]);
+  const stored = await reader.datasetMeta(ref.tenant, ref.id, state);
+  const meta = stored?.meta ?? null;
+  const hasImages = stored ? stored.hasImages : null;
   return {
     id: ref.id,
     name: spec.name ?? null,
@@ -40,18 +29,18 @@ export async function datasetView(store: TaskStore, ref: TaskRef): Promise<Datas
   };
 }
 
-export async function jobView(store: TaskStore, ref: TaskRef): Promise<JobResource> {
-  const [spec, state] = await Promise.all([store.readSpec<SelectSpec>(ref), store.readState(ref)]);
+export async function jobView(reader: TaskReader, ref: TaskRef): Promise<JobResource> {
+  const [spec, state] = await Promise.all([reader.readSpec<SelectSpec>(ref), reader.readState(ref)]);
   let summary: JobResource['summary'] = null;
   if (state.status === 'completed') {
-    const text = await store.readOptional(ref, 'summary.json');
+    const text = await reader.readFinalFile(ref, 'summary.json');
     summary = text ? (JSON.parse(text) as JobResource['summary']) : null;
   }
   let embedding: JobResource['embedding'] = null;
   if (spec.embedding) {
     const shards = await Promise.all(
       spec.embedding.shards.map(async (sh) => {
-        const s = await store.readState({ kind: 'embed', tenant: ref.tenant, id: sh.id }).catch(() => null);
+        const s = await reader.readState({ kind: 'embed', tenant: ref.tenant, id: sh.id }).catch(() => null);
         return { ...sh, status: s?.status ?? ('completed' as const), fraction: s?.progress.fraction ?? 1 };
       }),
     );

@@ -3,7 +3,7 @@ import { CairnError } from '../errors.js';
 import type { ResultDocument } from '../jobs/result-document.js';
 import type { SelectSpec, TaskRef } from '../jobs/task.js';
 import { csvCell } from '../jobs/assignment-export.js';
-import type { App, AppDeps } from './app.js';
+import type { App, RouteDeps } from './app.js';
 import { datasetView } from './resources.js';
 import { errorBody, idParams } from './schemas.js';
 
@@ -43,8 +43,8 @@ export interface ReviewItem {
 }
 
 /** Ranked prefixes of a result, and the review batch: what to send to annotation, and why. */
-export function reviewRoutes(app: App, deps: AppDeps): void {
-  const { store } = deps;
+export function reviewRoutes(app: App, deps: RouteDeps): void {
+  const { store, reader } = deps;
   const completedJob = async (tenant: string, id: string): Promise<{ r: TaskRef; spec: SelectSpec; result: ResultDocument }> => {
     const r: TaskRef = { kind: 'job', tenant, id };
     if (!(await store.exists(r))) throw new CairnError('JOB_NOT_FOUND', undefined, { jobId: id });
@@ -95,7 +95,7 @@ export function reviewRoutes(app: App, deps: AppDeps): void {
     async (req, reply) => {
       const { r, spec, result } = await completedJob(req.tenant, req.params.id);
       const m = checkM(req.query.m, result.k);
-      const ds = await datasetView(store, { kind: 'dataset', tenant: req.tenant, id: spec.datasetId }).catch(() => null);
+      const ds = await datasetView(reader, { kind: 'dataset', tenant: req.tenant, id: spec.datasetId }).catch(() => null);
       const thumb = (row: number): string | null => (ds?.hasImages ? `/v1/jobs/${r.id}/thumbnails/${row}.png` : null);
       const labelOf = new Map<number, string | null>(result.representatives.map((p) => [p.index, p.label]));
       const items: ReviewItem[] = [

@@ -82,7 +82,10 @@ export async function runAttempt(o: AttemptOptions): Promise<{ outcome: AttemptO
     const t = Date.now();
     if (t - lastWrite < STATE_WRITE_MS && p.fraction < 1) return;
     lastWrite = t;
-    void write({ ...state, progress: p, updatedAt: now() }).then(() => o.onState?.(state));
+    // Report the state that was written, not `state` as it is when the write ends (a later update
+    // may be newer than the file then; readers that mix events and file reads would go backwards).
+    const next: TaskState = { ...state, progress: p, updatedAt: now() };
+    void write(next).then(() => o.onState?.(next));
   };
 
   try {

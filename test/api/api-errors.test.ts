@@ -98,6 +98,8 @@ describe('API errors', () => {
     const job = (await request(url).post('/v1/jobs').send({ datasetId: ready, k: 2, maxIterations: 50 })).body;
     await settle(url, `/v1/jobs/${job.id}`);
     writeFileSync(join(t.dir, 'tenants', 'local', 'job', job.id, 'state.json'), '{"status": "comp');
+    // The API reuses a state read for 250 ms (src/api/task-reader.ts).
+    await new Promise((r) => setTimeout(r, 300));
     const res = await request(url).get(`/v1/jobs/${job.id}`);
     expectError(res, 'INTERNAL_ERROR');
     expect(res.body.error.message).toBe(ERROR_CATALOGUE.INTERNAL_ERROR.message);

@@ -1,0 +1,105 @@
+import { readFile, stat } from 'node:fs/promises';
+import { join } from 'node:path';
+import { z } from 'zod';
+import { THUMBS_DIR } from '../data/dataset-writer.js';
+import { META_FILE, type StoredDatasetMeta } from '../data/stored-dataset.js';
+import { CairnError } from '../errors.js';
+import type { SelectSpec, TaskRef } from '../jobs/task.js';
+import { loadReportInput } from '../report/report-data.js';
+import { renderReportPage } from '../report/report-page.js';
+import type { App, AppDeps } from './app.js';
+import { errorBody, idParams, resourceId } from './schemas.js';
+
+const errors = { 400: errorBody, 401: errorBody, 404: errorBody, 409: errorBody, 429: errorBody };
+
+/**
+ * The report page allows no script at all, images from this origin only (the contact sheet and
+ * thumbnails), and its one inline style sheet; it cannot be framed, post forms or change its base URL.
+ */
+export const REPORT_CSP = "default-src 'none'; img-src 'self'; style-src 'unsafe-inline'; base-uri 'none'; form-action 'none'; frame-ancestors 'none'";
+
+const API_KEY_NOTE =
+  'With API keys configured, the images the page embeds (`contact-sheet.png`, `thumbnails/{row}.png`) are requested by the browser without an Authorization header, so they answer 401 unless the browser sends the key some other way (for instance through a proxy that adds it); the page itself reads fine without them.';
+
+export const thumbnailParams = z.object({
+  id: resourceId,
+  row: z
+    .string()
+    .regex(/^(0|[1-9][0-9]{0,9})$/, 'a row number: 0, or a positive integer without leading zeros')
+    .describe('0-based row of the item in the job’s dataset.'),
+});
+
+/**
+ * The HTML report of a completed job, and the dataset thumbnails it shows. Needs only the task
+ * store from the app's dependencies (so AppDeps and the route modules' RouteDeps both fit).
+ */
+export function reportRoutes(app: App, deps: Pick<AppDeps, 'store'>): void {
+  const { store } = deps;
+  const jobRef = (tenant: string, id: string): TaskRef => ({ kind: 'job', tenant, id });
+  const existing = async (tenant: string, id: string): Promise<TaskRef> => {
+    const r = jobRef(tenant, id);
+    if (!(await store.exists(r))) throw new CairnError('JOB_NOT_FOUND', undefined, { jobId: id });
+    return r;
+  };
+
+  app.get(
+    '/v1/jobs/:id/report',
+    {
+      schema: {
+        summary: 'A readable HTML report of a completed job',
+        description:
+          'One self-contained HTML page (no scripts, inline styles and SVG charts only): job parameters and timings, D² and its ratio to random subsets, coverage distances, the contact sheet (image datasets) or a 2-D projection of a row sample with the representatives marked (vector datasets), the prefix D² curve against random subsets, the representatives and the worst-covered items. Served with a strict Content-Security-Policy. ' +
+          API_KEY_NOTE,
+        tags: ['jobs'],
+        params: idParams,
+        produces: ['text/html'],
+        response: { 200: z.string().describe('The HTML page (text/html; charset=utf-8).'), ...errors },
+      },
+    },
+    async (req, reply) => {
+      const r = await existing(req.tenant, req.params.id);
+      const state = await store.readState(r);
+      if (state.status !== 'completed') throw new CairnError('JOB_NOT_COMPLETED', `The job is ${state.status}.`, { jobId: r.id, status: state.status });
+      const spec = await store.readSpec<SelectSpec>(r);
+      const html = renderReportPage(await loadReportInput(store, r, spec));
+      return reply
+        .type('text/html; charset=utf-8')
+        .header('content-security-policy', REPORT_CSP)
+        .header('x-content-type-options', 'nosniff')
+        .header('referrer-policy', 'no-referrer')
+        .header('cache-control', 'private, no-cache')
+        .send(html);
+    },
+  );
+
+  app.get(
+    '/v1/jobs/:id/thumbnails/:row.png',
+    {
+      schema: {
+        summary: 'A thumbnail of an item of the job’s dataset (image datasets)',
+        description:
+          'The PNG thumbnail stored at ingestion for one row of the dataset the job selected from; the report page shows these for the representatives and the worst-covered items. 404 DATASET_NOT_FOUND when the dataset has been deleted, 409 DATASET_HAS_NO_IMAGES for a vector dataset, 404 ROUTE_NOT_FOUND for a row outside the dataset. ' +
+          API_KEY_NOTE,
+        tags: ['jobs'],
+        params: thumbnailParams,
+        produces: ['image/png'],
+      },
+    },
+    async (req, reply) => {
+      const r = await existing(req.tenant, req.params.id);
+      const row = Number(req.params.row);
+      const spec = await store.readSpec<SelectSpec>(r);
+      const dir = join(store.storeDir(req.tenant), spec.datasetId);
+      const meta = await readFile(join(dir, META_FILE), 'utf8')
+        .then((text) => JSON.parse(text) as StoredDatasetMeta)
+        .catch(() => null);
+      if (!meta) throw new CairnError('DATASET_NOT_FOUND', 'The job’s dataset has been deleted.', { datasetId: spec.datasetId });
+      const thumbs = join(dir, THUMBS_DIR);
+      if (!(await stat(thumbs).catch(() => null))?.isDirectory()) throw new CairnError('DATASET_HAS_NO_IMAGES', 'The dataset has no images, so there are no thumbnails.', { datasetId: spec.datasetId });
+      if (row >= meta.rows) throw new CairnError('ROUTE_NOT_FOUND', `The dataset has ${meta.rows} rows; there is no row ${row}.`, { row, rows: meta.rows });
+      const png = await readFile(join(thumbs, `${row}.png`)).catch(() => null);
+      if (!png) throw new CairnError('ROUTE_NOT_FOUND', `No thumbnail is stored for row ${row}.`, { row });
+      return reply.type('image/png').header('cache-control', 'private, max-age=3600').header('x-content-type-options', 'nosniff').send(png);
+    },
+  );
+}
