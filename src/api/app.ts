@@ -18,6 +18,7 @@ import type { Metrics } from './metrics.js';
 import type { ModelRegistry } from '../embed/model-registry.js';
 import { modelRoutes } from './model-routes.js';
 import { reviewRoutes } from './review-routes.js';
+import { reportRoutes } from './report-routes.js';
 import { opsRoutes } from './ops-routes.js';
 import { EventStreams } from './event-streams.js';
 import { TaskReader } from './task-reader.js';
@@ -140,6 +141,7 @@ export async function buildApp(deps: AppDeps): Promise<App> {
     jobRoutes(v1 as App, routeDeps, streams);
     modelRoutes(v1 as App, routeDeps);
     reviewRoutes(v1 as App, routeDeps);
+    reportRoutes(v1 as App, routeDeps);
   });
   opsRoutes(app, deps);
   return app;

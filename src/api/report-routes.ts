@@ -8,9 +8,7 @@ import type { SelectSpec, TaskRef } from '../jobs/task.js';
 import { loadReportInput } from '../report/report-data.js';
 import { renderReportPage } from '../report/report-page.js';
 import type { App, AppDeps } from './app.js';
-import { errorBody, idParams, resourceId } from './schemas.js';
-
-const errors = { 400: errorBody, 401: errorBody, 404: errorBody, 409: errorBody, 429: errorBody };
+import { idParams, resourceId } from './schemas.js';
 
 /**
  * The report page allows no script at all, images from this origin only (the contact sheet and
@@ -20,6 +18,10 @@ export const REPORT_CSP = "default-src 'none'; img-src 'self'; style-src 'unsafe
 
 const API_KEY_NOTE =
   'With API keys configured, the images the page embeds (`contact-sheet.png`, `thumbnails/{row}.png`) are requested by the browser without an Authorization header, so they answer 401 unless the browser sends the key some other way (for instance through a proxy that adds it); the page itself reads fine without them.';
+
+/** Three stacked stones, in the report's accent colour. */
+export const REPORT_ICON_SVG =
+  '<svg xmlns="http://www.w3.org/2000/svg" viewBox="0 0 32 32"><ellipse cx="16" cy="26" rx="12" ry="4.5" fill="#1f6f78"/><ellipse cx="16" cy="17.5" rx="8.5" ry="4" fill="#3a8a92"/><ellipse cx="16" cy="10" rx="5" ry="3.2" fill="#6aaab0"/></svg>';
 
 export const thumbnailParams = z.object({
   id: resourceId,
@@ -48,12 +50,11 @@ export function reportRoutes(app: App, deps: Pick<AppDeps, 'store'>): void {
       schema: {
         summary: 'A readable HTML report of a completed job',
         description:
-          'One self-contained HTML page (no scripts, inline styles and SVG charts only): job parameters and timings, D² and its ratio to random subsets, coverage distances, the contact sheet (image datasets) or a 2-D projection of a row sample with the representatives marked (vector datasets), the prefix D² curve against random subsets, the representatives and the worst-covered items. Served with a strict Content-Security-Policy. ' +
+          'One self-contained HTML page (no scripts, inline styles and SVG charts only): job parameters and timings, D² and its ratio to random subsets, coverage distances, the contact sheet (image datasets) or a 2-D projection of a row sample with the representatives marked (vector datasets), the prefix D² curve against random subsets, the representatives and the worst-covered items. Served with a strict Content-Security-Policy. Errors are the JSON error body: 404 JOB_NOT_FOUND, 409 JOB_NOT_COMPLETED (as for the result). ' +
           API_KEY_NOTE,
         tags: ['jobs'],
         params: idParams,
         produces: ['text/html'],
-        response: { 200: z.string().describe('The HTML page (text/html; charset=utf-8).'), ...errors },
       },
     },
     async (req, reply) => {
@@ -70,6 +71,20 @@ export function reportRoutes(app: App, deps: Pick<AppDeps, 'store'>): void {
         .header('cache-control', 'private, no-cache')
         .send(html);
     },
+  );
+
+  app.get(
+    '/v1/jobs/:id/report-icon.svg',
+    {
+      schema: {
+        summary: 'The report page’s icon',
+        description: 'A small static SVG the report links as its icon, so browsers do not ask for a missing /favicon.ico. The same for every job.',
+        tags: ['jobs'],
+        params: idParams,
+        produces: ['image/svg+xml'],
+      },
+    },
+    async (_req, reply) => reply.type('image/svg+xml').header('cache-control', 'public, max-age=86400').header('x-content-type-options', 'nosniff').send(REPORT_ICON_SVG),
   );
 
   app.get(

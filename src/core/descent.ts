@@ -75,6 +75,8 @@ export interface DescentContext {
   weightRows?: RowSource;
   /** Points that count as representatives but never move (1 = fixed); room for already-annotated items. */
   frozen?: Uint8Array;
+  /** A pull of points towards earlier positions (stable re-selection); added to the loss. */
+  anchors?: DescentAnchors;
   now?: () => number;
   onProgress?: (p: DescentProgress) => void;
   /** Called after each iteration; return true to stop (cancellation). */
@@ -88,6 +90,39 @@ export interface DescentContext {
   checkpointEveryMs?: number;
   /** Trace entries of an earlier attempt this descent continues (from a checkpoint). */
   initialTrace?: Array<[number, number]>;
+}
+
+/**
+ * The stability penalty R(p) = coefficient · Σ_{j active} min(1, |pⱼ − qⱼ|² / radius²): quadratic
+ * near the earlier position qⱼ, flat (cost `coefficient`) beyond `radius`, so a point the data pulls
+ * elsewhere strongly enough can still leave. Its gradient is coefficient · 2(pⱼ − qⱼ)/radius² inside.
+ */
+export interface DescentAnchors {
+  /** k×d earlier positions, in the selection space (rows of inactive points are ignored). */
+  points: Float32Array;
+  /** 1 = point j has an earlier position. */
+  active: Uint8Array;
+  coefficient: number;
+  radius: number;
+}
+
+/** R(p) of DescentAnchors, adding its gradient into grad when given. */
+export function anchorPenalty(anchors: DescentAnchors, points: Float32Array, d: number, grad?: Float64Array): number {
+  const { coefficient, radius } = anchors;
+  const r2 = radius * radius;
+  let total = 0;
+  for (let j = 0; j < anchors.active.length; j++) {
+    if (!anchors.active[j]) continue;
+    let sq = 0;
+    for (let t = 0; t < d; t++) sq += (points[j * d + t] - anchors.points[j * d + t]) ** 2;
+    if (sq >= r2) {
+      total += coefficient;
+      continue;
+    }
+    total += (coefficient * sq) / r2;
+    if (grad) for (let t = 0; t < d; t++) grad[j * d + t] += (2 * coefficient * (points[j * d + t] - anchors.points[j * d + t])) / r2;
+  }
+  return total;
 }
 
 export function initialDescentState(points: Float32Array, k: number, kind: OptimizerKind, rng: Rng): DescentState {
@@ -135,6 +170,7 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
   let fullBatch: Float32Array | undefined;
   let batchBuffer: Float32Array | undefined;
   let shuffled: Float32Array | undefined;
+  let anchorGrad: Float64Array | undefined;
 
   while (state.iteration < o.maxIterations) {
     const elapsed = now() - started;
@@ -167,7 +203,9 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
       c[j] = stats.hSum[j] / B;
       lin += state.weights[j] * c[j];
     }
-    const loss = 2 * lin - self.quadratic - ctx.constant;
+    // The stability penalty is part of the objective, so of the running loss the plateau test reads.
+    const penalty = ctx.anchors ? anchorPenalty(ctx.anchors, state.points, d, (anchorGrad ??= new Float64Array(k * d)).fill(0)) : 0;
+    const loss = 2 * lin - self.quadratic - ctx.constant + penalty;
     state.lossEma = state.lossEma === null ? loss : state.lossEma + emaRate * (loss - state.lossEma);
     if (state.cEma === null) state.cEma = c;
     else for (let j = 0; j < k; j++) state.cEma[j] += 0.2 * (c[j] - state.cEma[j]);
@@ -182,6 +220,7 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
         grad[row + t] = 2 * wj * (data - self.grad[row + t]);
       }
     }
+    if (anchorGrad) for (let i = 0; i < grad.length; i++) grad[i] += anchorGrad[i];
     if (state.optimizer.kind === 'sgd') normaliseForSgd(state, grad, k, d);
 
     const lr = lr0 * Math.pow(o.finalLearningRateFraction, Math.min(fraction, 1));

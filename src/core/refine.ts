@@ -12,6 +12,12 @@ export interface RefineInput {
   weights: Float64Array;
   /** Slots that may not be swapped (fixed items); 1 = fixed. */
   frozen?: Uint8Array;
+  /**
+   * Per candidate, a reward for having it in the set (stable re-selection: the threshold τ on
+   * previously chosen items). The search minimises f(S) − Σ_{u∈S} bonus[u], so a swap that takes
+   * out an item with bonus τ must lower f by more than τ (unless it brings in another such item).
+   */
+  bonus?: Float64Array;
   optimizeWeights: boolean;
   /** Cap on accepted swaps. */
   maxSwaps: number;
@@ -26,6 +32,8 @@ export interface RefineResult {
   /** 2Σwᵢcᵢ − ΣwᵢwⱼKᵢⱼ before and after (D² without the data's constant term). */
   before: number;
   after: number;
+  /** Σ bonus over the final set (0 without bonus): the search minimised after − bonusAfter. */
+  bonusAfter: number;
   weightSolverConverged: boolean;
 }
 
@@ -39,7 +47,7 @@ export interface RefineResult {
  * each needing a new kernel column, and on MNIST k = 20 reached optima covering fewer classes.)
  */
 export async function refineBySwaps(columns: KernelColumns, kernel: KernelSpec, input: RefineInput): Promise<RefineResult> {
-  const { poolSize: P, c } = input;
+  const { poolSize: P, c, bonus } = input;
   const k = input.slots.length;
   const slots = Int32Array.from(input.slots);
   let weights: Float64Array = Float64Array.from(input.weights);
@@ -82,9 +90,11 @@ export async function refineBySwaps(columns: KernelColumns, kernel: KernelSpec, 
         const col = cols[r];
         // Δ = 2w_r [c_u − B_u + w_r·K(u, s) + (B_s − c_s − w_r h(0))]; the last term is constant in u.
         const constant = Bu[s] - c[s] - wr * h0;
+        const bonusOut = bonus ? bonus[s] : 0;
         for (let u = 0; u < P; u++) {
           if (inSet[u] >= 0) continue;
-          const delta = 2 * wr * (c[u] - Bu[u] + wr * col[u] + constant);
+          let delta = 2 * wr * (c[u] - Bu[u] + wr * col[u] + constant);
+          if (bonus) delta += bonusOut - bonus[u];
           if (delta < best) {
             best = delta;
             bestR = r;
@@ -114,5 +124,7 @@ export async function refineBySwaps(columns: KernelColumns, kernel: KernelSpec, 
     converged = sol.converged;
     if (swapsThisRound === 0 && round > 0) break;
   }
-  return { slots, weights, swaps, before, after: objective(), weightSolverConverged: converged };
+  let bonusAfter = 0;
+  if (bonus) for (const u of slots) bonusAfter += bonus[u];
+  return { slots, weights, swaps, before, after: objective(), bonusAfter, weightSolverConverged: converged };
 }

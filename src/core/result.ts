@@ -15,14 +15,29 @@ export interface SelectionResult {
   scale: number;
   seed: number;
   weights: 'uniform' | 'optimized';
-  /** In rank order: every prefix of this list is a good summary. */
+  /** The k new items in rank order: every prefix of this list (with the fixed items) is a good summary. */
   representatives: Representative[];
+  /** The fixed items (SelectContext.fixed), in their given order; null without fixed items. */
+  fixed: FixedRepresentative[] | null;
+  /**
+   * With fixed items: D² of the fixed items alone (their optimal weights, or uniform over them) and
+   * of fixed + new (= discrepancy.value); gain = fixedOnly − withNew, ≥ 0 (a negative difference,
+   * possible only with uniform weights, is reported as 0). Null without fixed items.
+   */
+  coverageGain: { fixedOnly: number; withNew: number; gain: number } | null;
+  /**
+   * Stable re-selection (SelectContext.previous): `previous` earlier representatives (those now
+   * fixed items left out), `kept` of them chosen again, `replaced` = previous − kept, `added` new
+   * items not chosen before (= k − kept), and the strength used. Null without a previous selection.
+   */
+  stability: { previous: number; kept: number; replaced: number; added: number; strength: number } | null;
   coverage: {
     meanDistance: number;
     p90Distance: number;
     maxDistance: number;
     coveredWithin: Array<{ radius: number; fraction: number }>;
-    worstCovered: Array<{ index: number; distance: number; nearestRank: number }>;
+    /** nearestRank is 0 when the nearest representative is a fixed item; nearestFixed is then its position. */
+    worstCovered: Array<{ index: number; distance: number; nearestRank: number; nearestFixed?: number }>;
     labels: Record<string, { count: number; representatives: number; meanDistance: number }> | null;
   };
   discrepancy: {
@@ -65,6 +80,22 @@ export interface Representative {
   meanDistance: number;
   p90Distance: number;
   /** Distance from the representative to the farthest item it covers. */
+  radius: number;
+  labels: Record<string, number> | null;
+}
+
+/** A fixed item's place in the result: the coverage fields as for a representative. */
+export interface FixedRepresentative {
+  /** Index in SelectContext.fixed. */
+  position: number;
+  /** Its row in the input, or null when it is not one of the input's rows. */
+  index: number | null;
+  /** Weight in ν (weights sum to 1 over fixed items and representatives). */
+  weight: number;
+  share: number;
+  count: number;
+  meanDistance: number;
+  p90Distance: number;
   radius: number;
   labels: Record<string, number> | null;
 }

@@ -7,6 +7,8 @@ import type { RowSource } from './rows.js';
  * with probability proportional to the squared distance to the nearest point chosen so far (D²
  * sampling), on a random sample of rows (by default 16 per seed, at least 4,096). Returns row indices into `rows` (distinct rows; when the
  * sample has fewer than k distinct rows, duplicates of chosen rows are taken last).
+ * `given` points (fixed items, earlier representatives) count as chosen already: every seed,
+ * the first included, is D²-sampled against them. `exclude` rows are never chosen.
  */
 export async function seedKMeansPlusPlus(
   rows: RowSource,
@@ -14,6 +16,7 @@ export async function seedKMeansPlusPlus(
   backend: ComputeBackend,
   rng: Rng,
   sampleRows?: number,
+  options: { given?: Float32Array; exclude?: ReadonlySet<number> } = {},
 ): Promise<Int32Array> {
   const n = rows.rows;
   // 16 rows per seed (at least 4,096): each seed costs one pass over the sample, and the seeds
@@ -25,32 +28,35 @@ export async function seedKMeansPlusPlus(
   const best = new Float64Array(m).fill(Infinity);
   const chosen = new Int32Array(k);
   const taken = new Uint8Array(m);
-  let pick = rng.int(m);
-  for (let c = 0; c < k; c++) {
+  if (options.exclude?.size) for (let i = 0; i < m; i++) if (options.exclude.has(sampleIdx[i])) taken[i] = 1;
+  // best[i] = min over `width` columns of dist (m×width), then a D²-sampled untaken row.
+  const nextPick = (dist: Float32Array, width: number): number => {
+    let total = 0;
+    for (let i = 0; i < m; i++) {
+      for (let j = 0; j < width; j++) if (dist[i * width + j] < best[i]) best[i] = dist[i * width + j];
+      if (!taken[i]) total += best[i];
+    }
+    if (!(total > 0)) return lastUntaken(taken, null);
+    let u = rng.next() * total;
+    for (let i = 0; i < m; i++) {
+      if (taken[i]) continue;
+      u -= best[i];
+      if (u < 0 && best[i] > 0) return i;
+    }
+    return lastUntaken(taken, best);
+  };
+  const g = options.given ? options.given.length / d : 0;
+  let pick: number;
+  if (g > 0) pick = nextPick(await backend.sqDistances(sample, m, options.given!, g, d), g);
+  else {
+    pick = rng.int(m);
+    if (taken[pick]) pick = lastUntaken(taken, null);
+  }
+  for (let c = 0; ; c++) {
     chosen[c] = sampleIdx[pick];
     taken[pick] = 1;
     if (c === k - 1) break;
-    const dist = await backend.sqDistances(sample, m, sample.subarray(pick * d, pick * d + d), 1, d);
-    let total = 0;
-    for (let i = 0; i < m; i++) {
-      if (dist[i] < best[i]) best[i] = dist[i];
-      if (!taken[i]) total += best[i];
-    }
-    if (total > 0) {
-      let u = rng.next() * total;
-      pick = -1;
-      for (let i = 0; i < m; i++) {
-        if (taken[i]) continue;
-        u -= best[i];
-        if (u < 0 && best[i] > 0) {
-          pick = i;
-          break;
-        }
-      }
-      if (pick < 0) pick = lastUntaken(taken, best);
-    } else {
-      pick = lastUntaken(taken, null);
-    }
+    pick = nextPick(await backend.sqDistances(sample, m, sample.subarray(pick * d, pick * d + d), 1, d), 1);
   }
   return chosen;
 }

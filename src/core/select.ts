@@ -3,7 +3,8 @@ import type { KernelSpec } from '../compute/kernel-spec.js';
 import { CairnError } from '../errors.js';
 import type { DescentCheckpoint } from './checkpoint.js';
 import { coverageStats, type LabelCodes } from './coverage.js';
-import { runDescent, initialDescentState, selfTerm } from './descent.js';
+import { runDescent, initialDescentState, selfTerm, type DescentAnchors } from './descent.js';
+import { checkGivenItems, type FixedItems, type PreviousSelection } from './given-items.js';
 import { constantTerm, dataTermMeans, discrepancyFromTerms } from './discrepancy.js';
 import { autoIterations, parseSelectOptions, type SelectOptionsInput } from './options.js';
 import { greedyPrefixOrder, prefixCurve } from './ordering.js';
@@ -11,7 +12,7 @@ import { Rng } from './random.js';
 import { greedyForward } from './greedy.js';
 import { KernelColumns } from './kernel-columns.js';
 import { refineBySwaps } from './refine.js';
-import type { SelectionResult, SelectProgress } from './result.js';
+import type { FixedRepresentative, SelectionResult, SelectProgress } from './result.js';
 import { DenseRows, range, type RowSource } from './rows.js';
 import { medianDistance } from './scale.js';
 import { seedKMeansPlusPlus } from './seeding.js';
@@ -30,12 +31,29 @@ export interface SelectContext {
   /** Warm start: k starting points in the selection space (row-major), instead of k-means++ seeds. */
   initialPoints?: Float32Array;
   /**
+   * Items that are representatives already (e.g. annotated earlier). They enter D² with their own
+   * weights, never move, are never snapped or swapped out, and rows of the source that are fixed
+   * items are never chosen; k new items are chosen besides them. Reported in result.fixed and
+   * result.coverageGain. A checkpoint of such a selection holds k + f points (decodeCheckpoint(text, k + f)).
+   */
+  fixed?: FixedItems;
+  /**
+   * Stable re-selection: an earlier result's representatives. The descent starts from them (the
+   * first k; k-means++ seeds complete fewer), a penalty keeps points near them, snapping prefers
+   * the earlier item, and the swaps replace a kept earlier item only for a D² gain above a
+   * threshold (see stabilityTerms). Reported in result.stability. Not together with initialPoints.
+   */
+  previous?: PreviousSelection;
+  /**
    * Checkpoints of the descent, the long phase: `save` receives one every `everyMs`; `resume`, a
    * checkpoint saved by an earlier attempt of the same selection (same data, options and seed),
    * continues from it. The phases before the descent are deterministic and are recomputed.
    */
   checkpoint?: { save: (cp: DescentCheckpoint) => Promise<void> | void; everyMs?: number; resume?: DescentCheckpoint | null };
-  /** Receives the nearest representative's rank (1-based) and distance for every row, from the coverage pass. */
+  /**
+   * Receives the nearest representative's rank (1-based) and distance for every row, from the
+   * coverage pass; a row nearest to fixed item i gets −(i + 1).
+   */
   onAssignments?: (rank: Int32Array, distance: Float32Array) => Promise<void> | void;
 }
 
@@ -53,6 +71,16 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   const n = source.rows;
   if (n === 0) throw new CairnError('DATASET_EMPTY');
   if (o.k > n) throw new CairnError('K_TOO_LARGE', `k = ${o.k} but the dataset has ${n} rows.`, { k: o.k, rows: n });
+  const given = checkGivenItems(ctx.fixed, ctx.previous, n, source.cols);
+  const k = o.k;
+  const f = given.fixed.count;
+  // Points: the k new ones first, then the f fixed ones.
+  const total = k + f;
+  const fixedIdx = Array.from({ length: f }, (_, i) => k + i);
+  if (k > n - given.fixedRows.size) {
+    throw new CairnError('K_TOO_LARGE', `k = ${k} but only ${n - given.fixedRows.size} rows are not fixed items.`, { k, rows: n, fixedRows: given.fixedRows.size });
+  }
+  if (given.previous && ctx.initialPoints) throw new CairnError('INVALID_ARGUMENT', 'previous and initialPoints are two warm starts: pass one.', { field: 'previous' });
   const now = ctx.now ?? (() => performance.now());
   const rng = new Rng(o.seed);
   const seconds: Record<string, number> = {};
@@ -74,6 +102,13 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   const space = await prepareSpace(source, parseSpace(o.space), backend, rng, { inPlace: ctx.sourceIsScratch });
   const rows = space.rows;
   const d = rows.cols;
+  const fixedPoints = f > 0 ? await space.transform(given.fixed.vectors, f) : new Float32Array(0);
+  const prev = given.previous;
+  // The first k earlier representatives (they are in rank order), in the selection space.
+  const kp = prev ? Math.min(prev.count, k) : 0;
+  const prevPoints = kp > 0 ? await space.transform(prev!.vectors.subarray(0, kp * source.cols), kp) : new Float32Array(0);
+  const prevRows = prev ? prev.rows.subarray(0, kp) : new Int32Array(0);
+  const withFixed = (points: Float32Array): Float32Array => (f > 0 ? concat(points, fixedPoints) : points);
   endPhase('prepare');
   checkAbort();
 
@@ -88,8 +123,8 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   // Rows for the stage values, the weight solves and the random baselines (all rows when small).
   const scoring = n <= o.refineSampleRows ? rows : new DenseRows(rows.gather(rng.sample(n, o.refineSampleRows)), o.refineSampleRows, d);
   const stageD2 = async (points: Float32Array, w: Float64Array): Promise<number> => {
-    const c = await dataTermMeans(scoring, backend, kernel, points, o.k);
-    const { K } = await selfTerm(backend, kernel, points, w, o.k, d, false);
+    const c = await dataTermMeans(scoring, backend, kernel, points, total);
+    const { K } = await selfTerm(backend, kernel, points, w, total, d, false);
     return discrepancyFromTerms(c, K, w, constant.value);
   };
 
@@ -101,20 +136,33 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
       throw new CairnError('DIMENSION_MISMATCH', `initial points must be ${o.k}×${d}.`, { expected: o.k * d, got: ctx.initialPoints.length });
     }
     points = Float32Array.from(ctx.initialPoints);
+  } else if (prev) {
+    // The earlier representatives, and k-means++ seeds given them (and the fixed items) for the rest.
+    const extra =
+      k > kp ? await seedKMeansPlusPlus(rows, k - kp, backend, rng, undefined, { given: concat(prevPoints, fixedPoints), exclude: new Set([...given.fixedRows, ...prevRows]) }) : new Int32Array(0);
+    points = concat(prevPoints, rows.gather(extra));
+    // The earlier items themselves are a start for the swaps when they all still exist.
+    if (prevRows.every((r) => r >= 0)) seedRows = concat32i(prevRows, extra);
   } else {
-    seedRows = await seedKMeansPlusPlus(rows, o.k, backend, rng);
+    seedRows = await seedKMeansPlusPlus(rows, k, backend, rng, undefined, f > 0 ? { given: fixedPoints, exclude: given.fixedRows } : {});
     points = rows.gather(seedRows);
   }
-  const uniform = new Float64Array(o.k).fill(1 / o.k);
+  points = withFixed(points);
+  const uniform = new Float64Array(total).fill(1 / total);
   const seededD2 = await stageD2(points, uniform);
+  const stability = stabilityTerms(prev?.strength ?? 0, seededD2, k, s);
+  const anchors: DescentAnchors | undefined =
+    kp > 0 && stability.threshold > 0
+      ? { points: prevPoints, active: Uint8Array.from({ length: kp }, () => 1), coefficient: stability.threshold, radius: stability.radius }
+      : undefined;
   endPhase('seed');
   checkAbort();
 
-  let state = initialDescentState(points, o.k, o.optimizer, rng);
+  let state = initialDescentState(points, total, o.optimizer, rng);
   const resume = ctx.checkpoint?.resume;
   let descentRng = rng;
   // A checkpoint of another shape cannot be this selection's; starting afresh is always correct.
-  if (resume && resume.state.points.length === o.k * d && resume.state.weights.length === o.k) {
+  if (resume && resume.state.points.length === total * d && resume.state.weights.length === total) {
     state = resume.state;
     descentRng = Rng.fromState(resume.rng);
   }
@@ -128,6 +176,8 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
       scale: s,
       constant: constant.value,
       weightRows: scoring,
+      frozen: f > 0 ? Uint8Array.from({ length: total }, (_, j) => (j >= k ? 1 : 0)) : undefined,
+      anchors,
       now,
       shouldStop: () => ctx.signal?.aborted ?? false,
       initialTrace: state === resume?.state ? resume.trace : undefined,
@@ -144,7 +194,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
     {
       optimizer: o.optimizer,
       batchSize: o.batchSize,
-      maxIterations: o.maxIterations ?? autoIterations(o.k),
+      maxIterations: o.maxIterations ?? autoIterations(k),
       timeBudgetMs: o.timeBudgetSeconds ? o.timeBudgetSeconds * 1000 : null,
       learningRate: o.learningRate,
       finalLearningRateFraction: o.finalLearningRateFraction,
@@ -165,8 +215,9 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   endPhase('descent');
 
   progress('snap');
-  const cand = await nearestCandidates(rows, backend, state.points, o.k, o.snapCandidates);
-  const snapped = assignDistinct(cand, o.k, n, rng);
+  const cand = await nearestCandidates(rows, backend, state.points.subarray(0, k * d), k, o.snapCandidates);
+  const preferred = anchors ? Int32Array.from({ length: k }, (_, j) => (j < kp ? prevRows[j] : -1)) : undefined;
+  const snapped = assignDistinct(cand, k, n, rng, given.fixedRows, preferred);
   endPhase('snap');
   checkAbort();
 
@@ -175,17 +226,21 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   // exactConstantMaxRows, else its sample), whose data terms cᵢ that pass already computed, capped
   // so the pool × k kernel table and the pool's vectors stay bounded; plus each point's nearest items.
   const m = constant.referenceIndex.length;
-  const maxPool = o.refine ? Math.max(o.k, Math.min(Math.floor(o.refinePoolEntries / o.k), Math.floor(2 ** 26 / d))) : 0;
+  const maxPool = o.refine ? Math.max(k, Math.min(Math.floor(o.refinePoolEntries / k), Math.floor(2 ** 26 / d))) : 0;
   const picked = m <= maxPool ? range(0, m) : rng.sample(m, maxPool);
   const poolRows: number[] = [];
   const poolCValues: number[] = [];
   const inPool = new Set<number>();
   for (const pos of picked) {
-    poolRows.push(constant.referenceIndex[pos]);
+    const r = constant.referenceIndex[pos];
+    // A fixed item's row is in the pool once, as the fixed item (appended after the rows).
+    if (given.fixedRows.has(r)) continue;
+    poolRows.push(r);
     poolCValues.push(constant.rowMeans[pos]);
-    inPool.add(constant.referenceIndex[pos]);
+    inPool.add(r);
   }
-  const extras = Array.from(new Set([...snapped, ...(o.refine ? Array.from(cand.index) : [])])).filter((r) => r >= 0 && !inPool.has(r));
+  // The earlier items are candidates too, so a swap can bring one back.
+  const extras = Array.from(new Set([...snapped, ...(o.refine ? Array.from(cand.index) : []), ...prevRows])).filter((r) => r >= 0 && !inPool.has(r) && !given.fixedRows.has(r));
   if (extras.length) {
     const extraC = await dataTermMeans(constant.reference, backend, kernel, rows.gather(extras), extras.length);
     extras.forEach((r, i) => {
@@ -193,50 +248,64 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
       poolCValues.push(extraC[i]);
     });
   }
-  const poolC = Float64Array.from(poolCValues);
+  const rowSlots = poolRows.length;
+  // Fixed items are the last f pool entries: in every set, frozen, never a candidate for a swap.
+  const fixedSlots = Int32Array.from({ length: f }, (_, i) => rowSlots + i);
+  const poolC = f > 0 ? concat64(Float64Array.from(poolCValues), await dataTermMeans(constant.reference, backend, kernel, fixedPoints, f)) : Float64Array.from(poolCValues);
   const slotOf = new Map(poolRows.map((r, i) => [r, i]));
-  const columns = new KernelColumns(backend, kernel, rows.gather(poolRows), poolRows.length, d);
+  const columns = new KernelColumns(backend, kernel, withFixed(rows.gather(poolRows)), rowSlots + f, d);
+  let bonus: Float64Array | undefined;
+  if (stability.threshold > 0 && kp > 0) {
+    bonus = new Float64Array(rowSlots + f);
+    for (const r of prevRows) if (r >= 0) bonus[slotOf.get(r)!] = stability.threshold;
+  }
+  const frozenSlots = f > 0 ? Uint8Array.from({ length: total }, (_, j) => (j >= k ? 1 : 0)) : undefined;
   const refineFrom = (slots: Int32Array, weights: Float64Array) =>
     refineBySwaps(columns, kernel, {
-      poolSize: poolRows.length,
+      poolSize: rowSlots + f,
       c: poolC,
-      slots,
+      slots: f > 0 ? concat32i(slots, fixedSlots) : slots,
       weights,
+      frozen: frozenSlots,
+      bonus,
       optimizeWeights: o.weights === 'optimized',
-      maxSwaps: o.refine ? 20 * o.k : 0,
+      maxSwaps: o.refine ? 20 * k : 0,
       rounds: o.refine ? 3 : 1,
     });
   const fromDescent = await refineFrom(Int32Array.from(snapped, (r) => slotOf.get(r)!), descentWeights);
   // Starts that do not depend on the descent's basin: greedy forward selection over the same
-  // candidates, and the seeds. Swaps run from each; the lowest D² wins (see trace.refineStart).
+  // candidates, and the seeds. Swaps run from each; the lowest D² wins (see trace.refineStart) —
+  // in a stable re-selection, the lowest D² minus the threshold per earlier item kept.
   let refined = fromDescent;
   let refineStart: RefineStart = 'descent';
   if (o.refine) {
     const starts: Array<[RefineStart, Int32Array, Float64Array]> = [
-      ['greedy', await greedyForward(columns, kernel, poolC, o.k), uniform],
+      ['greedy', await greedyForward(columns, kernel, poolC, k, fixedSlots), uniform],
     ];
-    // The k-means++ seeds are real items already: a third start at no extra cost.
-    if (seedRows && seedRows.every((r) => slotOf.has(r))) starts.push(['seeds', Int32Array.from(seedRows, (r) => slotOf.get(r)!), uniform]);
+    // The k-means++ seeds (or the earlier items) are real items already: a third start at no extra cost.
+    if (seedRows && seedRows.every((r) => slotOf.has(r)) && new Set(seedRows).size === k) {
+      starts.push(['seeds', Int32Array.from(seedRows, (r) => slotOf.get(r)!), uniform]);
+    }
     for (const [name, slots, weights] of starts) {
       const result = await refineFrom(slots, weights);
-      if (result.after < refined.after) {
+      if (result.after - result.bonusAfter < refined.after - refined.bonusAfter) {
         refined = result;
         refineStart = name;
       }
     }
   }
-  const chosen = Int32Array.from(refined.slots, (u) => poolRows[u]);
+  const chosen = Int32Array.from(refined.slots.subarray(0, k), (u) => poolRows[u]);
   const snappedD2 = fromDescent.before - constant.value;
   const refinedD2 = refined.after - constant.value;
   endPhase('refine');
   checkAbort();
 
   progress('coverage');
-  const reps = rows.gather(chosen);
-  const s2 = [0.25, 0.5, 0.75, 1].map((f) => f * s);
+  const reps = withFixed(rows.gather(chosen));
+  const s2 = [0.25, 0.5, 0.75, 1].map((x) => x * s);
   const radii = o.radius ? [...s2, o.radius].sort((a, b) => a - b) : s2;
-  const cov = await coverageStats(rows, backend, kernel, reps, o.k, ctx.labels ?? null, { radii, worstCount: o.worstCount });
-  const { K } = await selfTerm(backend, kernel, reps, uniform, o.k, d, false);
+  const cov = await coverageStats(rows, backend, kernel, reps, total, ctx.labels ?? null, { radii, worstCount: o.worstCount });
+  const { K } = await selfTerm(backend, kernel, reps, uniform, total, d, false);
   const c = cov.dataTermMeans;
   let weights: Float64Array = uniform;
   let weightSolver: SelectionResult['trace']['weightSolver'] = null;
@@ -246,21 +315,34 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
     weightSolver = { converged: sol.converged, gap: sol.gap, iterations: sol.iterations };
   }
   const finalD2 = discrepancyFromTerms(c, K, weights, constant.value);
+  let coverageGain: SelectionResult['coverageGain'] = null;
+  if (f > 0) {
+    const cF = c.slice(k);
+    const KF = new Float64Array(f * f);
+    for (let i = 0; i < f; i++) for (let j = 0; j < f; j++) KF[i * f + j] = K[(k + i) * total + k + j];
+    const wF = o.weights === 'optimized' ? solveWeights(cF, KF).weights : new Float64Array(f).fill(1 / f);
+    const fixedOnly = nonNegative(discrepancyFromTerms(cF, KF, wF, constant.value));
+    coverageGain = { fixedOnly, withNew: nonNegative(finalD2), gain: Math.max(0, fixedOnly - nonNegative(finalD2)) };
+  }
   endPhase('coverage');
   checkAbort();
 
   progress('baseline');
   const draws: number[][] = [];
+  // Random k-subsets of the rows that are not fixed items, each together with the fixed items.
+  const freeRows = given.fixedRows.size > 0 ? Int32Array.from({ length: n }, (_, i) => i).filter((i) => !given.fixedRows.has(i)) : null;
+  const fixedScoringC = f > 0 ? await dataTermMeans(scoring, backend, kernel, fixedPoints, f) : null;
   for (let r = 0; r < o.randomDraws; r++) {
-    const idx = rng.sample(n, o.k);
+    const sampled = rng.sample(freeRows ? freeRows.length : n, k);
+    const idx = freeRows ? sampled.map((i) => freeRows[i]) : sampled;
     const pts = rows.gather(idx);
-    const cr = await dataTermMeans(scoring, backend, kernel, pts, o.k);
-    const { K: Kr } = await selfTerm(backend, kernel, pts, uniform, o.k, d, false);
-    draws.push(prefixCurve(cr, Kr, constant.value));
+    const cr = await dataTermMeans(scoring, backend, kernel, pts, k);
+    const { K: Kr } = await selfTerm(backend, kernel, withFixed(pts), uniform, total, d, false);
+    draws.push(prefixCurve(fixedScoringC ? concat64(cr, fixedScoringC) : cr, Kr, constant.value, fixedIdx));
   }
-  const randomFinal = draws.map((curve) => curve[o.k - 1]);
+  const randomFinal = draws.map((curve) => curve[k - 1]);
   const randomMedian = median(randomFinal);
-  const { order, curve } = greedyPrefixOrder(c, K, constant.value);
+  const { order, curve } = greedyPrefixOrder(c, K, constant.value, fixedIdx);
   endPhase('baseline');
 
   const representatives = order.map((j, rank) => {
@@ -277,11 +359,36 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
       labels: rc.labels,
     };
   });
-  const rankOf = new Int32Array(o.k);
+  const fixedResult: FixedRepresentative[] | null =
+    f > 0
+      ? fixedIdx.map((j, position) => {
+          const rc = cov.perRepresentative[j];
+          const row = given.fixed.rows[position];
+          return {
+            position,
+            index: row >= 0 ? row : null,
+            weight: weights[j],
+            share: rc.share,
+            count: rc.count,
+            meanDistance: rc.meanDistance,
+            p90Distance: rc.p90Distance,
+            radius: rc.maxDistance,
+            labels: rc.labels,
+          };
+        })
+      : null;
+  // Rank 1..k of each new item; a fixed item i is −(i + 1) in the assignments, 0 as nearestRank.
+  const rankOf = new Int32Array(total);
   order.forEach((j, rank) => (rankOf[j] = rank + 1));
   if (ctx.onAssignments) {
-    const rank = Int32Array.from(cov.assignment, (j) => rankOf[j]);
+    const rank = Int32Array.from(cov.assignment, (j) => (j < k ? rankOf[j] : -(j - k + 1)));
     await ctx.onAssignments(rank, cov.distance);
+  }
+  let stabilityResult: SelectionResult['stability'] = null;
+  if (prev) {
+    const chosenSet = new Set(chosen);
+    const kept = Array.from(prev.rows).filter((r) => r >= 0 && chosenSet.has(r)).length;
+    stabilityResult = { previous: prev.count, kept, replaced: prev.count - kept, added: k - kept, strength: prev.strength };
   }
   progress('done', 1);
 
@@ -296,12 +403,17 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
     seed: o.seed,
     weights: o.weights,
     representatives,
+    fixed: fixedResult,
+    coverageGain,
+    stability: stabilityResult,
     coverage: {
       meanDistance: cov.meanDistance,
       p90Distance: cov.p90Distance,
       maxDistance: cov.maxDistance,
       coveredWithin: cov.coveredWithin,
-      worstCovered: cov.worstCovered.map((w) => ({ index: w.index, distance: w.distance, nearestRank: rankOf[w.nearest] })),
+      worstCovered: cov.worstCovered.map((w) =>
+        w.nearest < k ? { index: w.index, distance: w.distance, nearestRank: rankOf[w.nearest] } : { index: w.index, distance: w.distance, nearestRank: 0, nearestFixed: w.nearest - k },
+      ),
       labels: cov.labels,
     },
     discrepancy: {
@@ -334,6 +446,42 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
 }
 
 type RefineStart = SelectionResult['trace']['refineStart'];
+
+/**
+ * The stability terms of a re-selection with strength λ, warm-start discrepancy D²₀ (the earlier
+ * items, k-means++ seeds for any missing, and the fixed items, uniform weights: the `seeded` stage)
+ * and data scale s:
+ *   threshold τ = λ · max(D²₀, 0) / k,   radius = s.
+ * Descent: R(p) = τ · Σ_{j earlier} min(1, |pⱼ − qⱼ|²/s²) (DescentAnchors), so moving a point
+ * farther than s from its earlier position costs τ. Swaps: the search minimises D²(S) − τ·|S ∩ earlier|,
+ * so an earlier item is replaced only when that lowers D² by more than τ. Both are in units of D²
+ * and so scale-free: λ is the fraction of the warm start's D² that keeping all k earlier items may
+ * cost (k items × τ each); λ = 0 is a plain warm start (no penalty, no snap preference).
+ */
+export function stabilityTerms(strength: number, warmStartD2: number, k: number, scale: number): { threshold: number; radius: number } {
+  return { threshold: (strength * Math.max(warmStartD2, 0)) / k, radius: scale };
+}
+
+function concat(a: Float32Array, b: Float32Array): Float32Array {
+  const out = new Float32Array(a.length + b.length);
+  out.set(a);
+  out.set(b, a.length);
+  return out;
+}
+
+function concat64(a: Float64Array, b: Float64Array): Float64Array {
+  const out = new Float64Array(a.length + b.length);
+  out.set(a);
+  out.set(b, a.length);
+  return out;
+}
+
+function concat32i(a: Int32Array, b: Int32Array): Int32Array {
+  const out = new Int32Array(a.length + b.length);
+  out.set(a);
+  out.set(b, a.length);
+  return out;
+}
 
 /** D² ≥ 0 (h is conditionally negative definite); rounding can leave values like −1e−16. */
 function nonNegative(v: number): number {

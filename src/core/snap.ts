@@ -46,7 +46,9 @@ export async function nearestCandidates(
  * Distinct real items for the points: all (point, candidate) pairs in order of distance, each
  * point taking its nearest candidate not yet taken. A point whose M candidates are all taken
  * gets the nearest unused row of the other points' candidates, else a random unused row.
- * `taken` marks rows that may not be chosen (e.g. fixed items).
+ * `taken` marks rows that may not be chosen (e.g. fixed items). `preferred[j]` (a row, or −1) is
+ * taken by point j first whenever it is among j's candidates (stable re-selection: the item the
+ * point stood for before).
  */
 export function assignDistinct(
   cand: CandidateLists,
@@ -54,12 +56,25 @@ export function assignDistinct(
   rowCount: number,
   rng: Rng,
   taken: Set<number> = new Set(),
+  preferred?: Int32Array,
 ): Int32Array {
   const M = cand.m;
   const order = Array.from({ length: k * M }, (_, i) => i).filter((i) => cand.index[i] >= 0);
   order.sort((a, b) => cand.sqDist[a] - cand.sqDist[b] || a - b);
   const chosen = new Int32Array(k).fill(-1);
   const used = new Set(taken);
+  if (preferred) {
+    for (let j = 0; j < k; j++) {
+      const row = preferred[j];
+      if (row < 0 || used.has(row)) continue;
+      for (let r = 0; r < M; r++) {
+        if (cand.index[j * M + r] !== row) continue;
+        chosen[j] = row;
+        used.add(row);
+        break;
+      }
+    }
+  }
   for (const pair of order) {
     const j = Math.floor(pair / M);
     const row = cand.index[pair];

@@ -13,6 +13,11 @@ export interface PreparedSpace {
   explainedVarianceRatio?: number[];
   /** PCA only: the principal axes, d×M row-major (column j is axis j, unit length), for the centred rows. */
   axes?: Float32Array;
+  /**
+   * The same transform for other vectors of the source space (count × source.cols, row-major):
+   * fixed items and earlier representatives enter the selection space through it.
+   */
+  transform: (vectors: Float32Array, count: number) => Promise<Float32Array>;
 }
 
 /**
@@ -84,14 +89,21 @@ export async function prepareSpace(
   const { mean, std } = columnMoments(source);
   const shift = Float32Array.from(mean);
   const scale = spec.kind === 'standardize' ? Float32Array.from(std, (s) => (s > 0 ? 1 / s : 0)) : null;
+  // The same float32 arithmetic as AffineRows and transformInPlace, so a vector equal to a row
+  // lands exactly on the transformed row (with pca, up to the rounding of the projection).
+  const affine = async (vectors: Float32Array): Promise<Float32Array> => {
+    const out = Float32Array.from(vectors);
+    transformInPlace(out, source.cols, shift, scale);
+    return out;
+  };
   if (spec.kind !== 'pca') {
     // A caller that owns the rows (the CLI's loaded file) lets them be transformed in place:
     // one copy of the data fewer.
     if (options.inPlace && source instanceof DenseRows) {
       transformInPlace(source.data, source.cols, shift, scale);
-      return { rows: source, spec };
+      return { rows: source, spec, transform: affine };
     }
-    return { rows: materialise(new AffineRows(source, shift, scale)), spec };
+    return { rows: materialise(new AffineRows(source, shift, scale)), spec, transform: affine };
   }
   const centred = new AffineRows(source, shift, null);
   const d = source.cols;
@@ -127,6 +139,7 @@ export async function prepareSpace(
     spec,
     explainedVarianceRatio: order.map((i) => (totalVariance > 0 ? Math.max(values[i], 0) / totalVariance : 0)),
     axes,
+    transform: async (vectors, count) => (count === 0 ? new Float32Array(0) : backend.gemm(await affine(vectors), count, d, axes, d, M, false, false)),
   };
 }
 

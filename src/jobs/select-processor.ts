@@ -1,4 +1,6 @@
+import { existsSync } from 'node:fs';
 import { join } from 'node:path';
+import { projectSample } from '../report/report-data.js';
 import { createBackend } from '../compute/create-backend.js';
 import { decodeCheckpoint, encodeCheckpoint } from '../core/checkpoint.js';
 import { parseSelectOptions } from '../core/options.js';
@@ -67,6 +69,11 @@ export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
     if (!assignments) throw new Error('the selection reported no assignments');
     await store.writeAtomic(ref, 'assignments.bin', assignments);
     const doc: ResultDocument = { ...resultDocument(result, items, meta, { id: spec.datasetId, source: meta.sourceName }), ...(embedding ? { embedding } : {}) };
+    // The report page's map of a vector dataset: a projection of a row sample on its first two
+    // principal axes, computed here rather than on the API's event loop.
+    if (!existsSync(join(dataset.dir, 'thumbs')) && !spec.embedding) {
+      await store.writeAtomic(ref, 'projection.json', JSON.stringify(await projectSample(dataset, doc)));
+    }
     await store.writeAtomic(ref, 'summary.json', JSON.stringify(resultSummary(doc)) + '\n');
     await store.writeAtomic(ref, 'result.json', JSON.stringify(doc) + '\n');
     await store.removeFile(ref, 'checkpoint.json');
