@@ -24,11 +24,11 @@ const READ_SPAN_BYTES = 4 * 1024 * 1024;
 
 /**
  * Everything the report page of a completed job needs, from the job folder and the stored
- * dataset: the result, the job's and dataset's names and times, and for vector datasets a seeded
- * sample of rows projected on its first two principal axes with the representatives on the same
- * axes. A dataset deleted since the job ran still gives a page (from the result alone).
+ * dataset: the result, the job's and dataset's names and times, and for vector datasets the map
+ * the worker saved (projection.json, see projectSample). A dataset deleted since the job ran still
+ * gives a page (from the result alone).
  */
-export async function loadReportInput(store: TaskStore, ref: TaskRef, spec: SelectSpec, options: LoadReportOptions = {}): Promise<ReportInput> {
+export async function loadReportInput(store: TaskStore, ref: TaskRef, spec: SelectSpec): Promise<ReportInput> {
   const [resultText, state] = await Promise.all([store.readText(ref, 'result.json'), store.readState(ref)]);
   const result = JSON.parse(resultText) as ResultDocument;
   const dsRef: TaskRef = { kind: 'dataset', tenant: ref.tenant, id: spec.datasetId };
