@@ -75,6 +75,7 @@ export const ERROR_CATALOGUE = {
   JOB_FINISHED: { status: 409, message: 'The job has already finished and cannot be cancelled.' },
   DATASET_NOT_READY: { status: 409, message: 'The dataset is not ingested (it is queued, running or failed; see its status).' },
   DATASET_IN_USE: { status: 409, message: 'Selection jobs still queued or running use this dataset; cancel them first.' },
+  ITEM_NOT_FOUND: { status: 422, message: 'An item id the job names (a fixed item) is not in its dataset.' },
   DATASET_HAS_NO_IMAGES: { status: 409, message: 'The dataset has no images, so there is no contact sheet.' },
   SERVICE_SHUTTING_DOWN: { status: 503, message: 'The service is shutting down; retry shortly.' },
   INTERNAL_ERROR: { status: 500, message: 'An internal error occurred; it has been logged.' },

@@ -64,7 +64,7 @@ export function jobRoutes(app: App, deps: RouteDeps, streams: EventStreams): voi
     },
     async (req, reply) => {
       const tenant = req.tenant;
-      const { datasetId, name, embedding: wanted, ...options } = req.body;
+      const { datasetId, name, embedding: wanted, fixed: fixedIn, previous, ...options } = req.body;
       const create = async () => {
         const dsRef: TaskRef = { kind: 'dataset', tenant, id: datasetId };
         if (!(await store.exists(dsRef))) throw new CairnError('DATASET_NOT_FOUND', undefined, { datasetId });
@@ -95,8 +95,21 @@ export function jobRoutes(app: App, deps: RouteDeps, streams: EventStreams): voi
         }
         const pca = /^pca:(\d+)$/.exec(options.space);
         if (pca && Number(pca[1]) > cols) throw new CairnError('INVALID_ARGUMENT', `space pca:${pca[1]} asks for more axes than the ${cols} dimensions of the vectors.`, { name: 'space', value: options.space });
+        const fixed = fixedIn ? { ids: fixedIn.ids, datasetId: fixedIn.datasetId ?? datasetId } : undefined;
+        if (fixed && fixed.datasetId !== datasetId) {
+          const other = await datasetView(reader, { kind: 'dataset', tenant, id: fixed.datasetId }).catch(() => {
+            throw new CairnError('DATASET_NOT_FOUND', undefined, { datasetId: fixed.datasetId });
+          });
+          if (other.status !== 'completed') throw new CairnError('DATASET_NOT_READY', `The fixed items' dataset is ${other.status}.`, { datasetId: fixed.datasetId, status: other.status });
+          if (embedding && !other.hasImages) throw new CairnError('DATASET_NOT_IMAGES', "An embedding job's fixed items must be images.", { datasetId: fixed.datasetId });
+          if (!embedding && other.cols !== ds.cols) throw new CairnError('DIMENSION_MISMATCH', `The fixed items' dataset has ${other.cols} columns, the job's ${ds.cols}.`, { expected: ds.cols, got: other.cols });
+        }
+        if (previous) {
+          const earlier = await jobView(reader, ref(tenant, previous.jobId));
+          if (earlier.status !== 'completed') throw new CairnError('JOB_NOT_COMPLETED', `The earlier job is ${earlier.status}.`, { jobId: previous.jobId, status: earlier.status });
+        }
         const r = ref(tenant, id);
-        const spec: SelectSpec = { kind: 'job', datasetId, options, name, ...(embedding ? { embedding } : {}), createdAt: new Date().toISOString() };
+        const spec: SelectSpec = { kind: 'job', datasetId, options, name, ...(embedding ? { embedding } : {}), ...(fixed ? { fixed } : {}), ...(previous ? { previous } : {}), createdAt: new Date().toISOString() };
         await store.create(r, spec);
         await queue.enqueue(r, children);
         return { status: 202, body: await jobView(reader, r) };
@@ -170,7 +183,8 @@ export function jobRoutes(app: App, deps: RouteDeps, streams: EventStreams): voi
         throw new CairnError('DATASET_NOT_FOUND', 'The job’s dataset has been deleted, so its item ids are gone.', { datasetId: spec.datasetId });
       });
       const format = req.query.format;
-      const body = Readable.from(assignmentRows(join(dsDir, 'items.jsonl'), store.file(r, 'assignments.bin'), result.rows, repIds, format));
+      const fixedIds = (result.fixed ?? []).map((x) => x.id);
+      const body = Readable.from(assignmentRows(join(dsDir, 'items.jsonl'), store.file(r, 'assignments.bin'), result.rows, repIds, format, fixedIds));
       return reply
         .type(format === 'csv' ? 'text/csv; charset=utf-8' : 'application/x-ndjson')
         .header('content-disposition', `attachment; filename="${r.id}-assignments.${format === 'csv' ? 'csv' : 'ndjson'}"`)

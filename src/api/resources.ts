@@ -51,6 +51,8 @@ export async function jobView(reader: TaskReader, ref: TaskRef): Promise<JobReso
     name: spec.name ?? null,
     datasetId: spec.datasetId,
     embedding,
+    fixed: spec.fixed ?? null,
+    previous: spec.previous ?? null,
     ...common(state),
     options: spec.options as Record<string, unknown>,
     createdAt: spec.createdAt,

@@ -82,6 +82,8 @@ export const jobResource = z.object({
     })
     .nullable()
     .describe('For a job in an embedding space: the model, and the embedding shards this job queued (none when the embedding was cached) with their progress.'),
+  fixed: z.object({ ids: z.array(z.string()), datasetId: z.string() }).nullable().describe('The fixed items the job was given.'),
+  previous: z.object({ jobId: z.string(), strength: z.number().optional() }).nullable().describe('The earlier job of a stable re-selection.'),
   summary: z
     .object({ k: z.number().int(), d2: z.number(), ratioToRandom: z.number().nullable(), seconds: z.number() })
     .nullable()
@@ -95,8 +97,24 @@ export const embeddingChoice = z
   })
   .describe('Select in the embedding space of an ONNX model (image datasets only). The embedding is computed once per dataset and model, in shards any worker can run, and reused by later jobs; `space` then applies to the embedded vectors.');
 
+export const fixedChoice = z
+  .object({
+    ids: z.array(z.string().min(1).max(512)).min(1).max(10_000).describe('Ids of items that already count as representatives (e.g. annotated earlier).'),
+    datasetId: resourceId.optional().describe("The dataset the ids belong to (same columns, or images for an embedding job); default the job's own."),
+  })
+  .describe('Fixed items: they enter the objective with their own weights and are never moved or replaced; the job chooses k new items besides them and reports the coverage gain of the new ones.');
+
+export const previousChoice = z
+  .object({
+    jobId: resourceId.describe('A completed job, usually on an earlier version of the dataset; its representatives are matched by id.'),
+    strength: z.number().min(0).max(1000).optional().describe('How strongly to keep the earlier representatives: about the share of D² that keeping all of them may cost. 0 = a plain warm start; default 0.1.'),
+  })
+  .describe('Stable re-selection: start from an earlier job’s representatives and keep them where the data did not change. The result reports kept / replaced / added and D² against an unconstrained run (which the job also runs).');
+
 export const createJobBody = selectOptionsSchema.extend({
   embedding: embeddingChoice.optional(),
+  fixed: fixedChoice.optional(),
+  previous: previousChoice.optional(),
   datasetId: resourceId.describe('A dataset of this tenant whose ingestion has completed.'),
   name: z.string().max(200).optional().describe('Free text shown back in listings.'),
 });

@@ -93,9 +93,9 @@ export interface DescentContext {
 }
 
 /**
- * The stability penalty R(p) = coefficient · Σ_{j active} min(1, |pⱼ − qⱼ|² / radius²): quadratic
- * near the earlier position qⱼ, flat (cost `coefficient`) beyond `radius`, so a point the data pulls
- * elsewhere strongly enough can still leave. Its gradient is coefficient · 2(pⱼ − qⱼ)/radius² inside.
+ * The stability penalty R(p) = coefficient · Σ_{j active} min(1, |pⱼ − qⱼ|² / ρⱼ²): quadratic near
+ * the earlier position qⱼ, flat (cost `coefficient`) beyond the radius ρⱼ, so a point the data pulls
+ * elsewhere strongly enough can still leave. Its gradient is coefficient · 2(pⱼ − qⱼ)/ρⱼ² inside.
  */
 export interface DescentAnchors {
   /** k×d earlier positions, in the selection space (rows of inactive points are ignored). */
@@ -103,16 +103,17 @@ export interface DescentAnchors {
   /** 1 = point j has an earlier position. */
   active: Uint8Array;
   coefficient: number;
-  radius: number;
+  /** ρⱼ per point (> 0 for active points). */
+  radius: Float64Array;
 }
 
 /** R(p) of DescentAnchors, adding its gradient into grad when given. */
 export function anchorPenalty(anchors: DescentAnchors, points: Float32Array, d: number, grad?: Float64Array): number {
-  const { coefficient, radius } = anchors;
-  const r2 = radius * radius;
+  const { coefficient } = anchors;
   let total = 0;
   for (let j = 0; j < anchors.active.length; j++) {
     if (!anchors.active[j]) continue;
+    const r2 = anchors.radius[j] * anchors.radius[j];
     let sq = 0;
     for (let t = 0; t < d; t++) sq += (points[j * d + t] - anchors.points[j * d + t]) ** 2;
     if (sq >= r2) {

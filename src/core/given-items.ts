@@ -16,7 +16,7 @@ export interface PreviousSelection {
   rows: Int32Array;
   /**
    * λ ≥ 0: keeping all previous items may cost up to about this fraction of the warm start's D²
-   * (see stabilityTerms). 0 = a plain warm start. Default DEFAULT_STABILITY_STRENGTH.
+   * (see stabilityThreshold in select.ts). 0 = a plain warm start. Default DEFAULT_STABILITY_STRENGTH.
    */
   strength?: number;
 }

@@ -59,7 +59,10 @@ export interface SelectionResult {
     /** True when most sampled pairs were duplicates, so the median distance was 0 and a fallback scale was used. */
     scaleDegenerate: boolean;
     swaps: number;
-    /** Which start the kept refinement came from: the descent's snapped items, greedy forward selection, or the k-means++ seeds. */
+    /**
+     * Which start the kept refinement came from: the descent's snapped items, greedy forward
+     * selection, or the k-means++ seeds (in a stable re-selection: the earlier items themselves).
+     */
     refineStart: 'descent' | 'greedy' | 'seeds';
     weightSolver: { converged: boolean; gap: number; iterations: number } | null;
     loss: Array<[number, number]>;

@@ -16,7 +16,7 @@ import type { FixedRepresentative, SelectionResult, SelectProgress } from './res
 import { DenseRows, range, type RowSource } from './rows.js';
 import { medianDistance } from './scale.js';
 import { seedKMeansPlusPlus } from './seeding.js';
-import { assignDistinct, nearestCandidates } from './snap.js';
+import { assignDistinct, nearestCandidates, type CandidateLists } from './snap.js';
 import { parseSpace, prepareSpace } from './space.js';
 import { solveWeights } from './weights.js';
 
@@ -41,7 +41,7 @@ export interface SelectContext {
    * Stable re-selection: an earlier result's representatives. The descent starts from them (the
    * first k; k-means++ seeds complete fewer), a penalty keeps points near them, snapping prefers
    * the earlier item, and the swaps replace a kept earlier item only for a D² gain above a
-   * threshold (see stabilityTerms). Reported in result.stability. Not together with initialPoints.
+   * threshold (see stabilityThreshold). Reported in result.stability. Not together with initialPoints.
    */
   previous?: PreviousSelection;
   /**
@@ -141,8 +141,8 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
     const extra =
       k > kp ? await seedKMeansPlusPlus(rows, k - kp, backend, rng, undefined, { given: concat(prevPoints, fixedPoints), exclude: new Set([...given.fixedRows, ...prevRows]) }) : new Int32Array(0);
     points = concat(prevPoints, rows.gather(extra));
-    // The earlier items themselves are a start for the swaps when they all still exist.
-    if (prevRows.every((r) => r >= 0)) seedRows = concat32i(prevRows, extra);
+    // The earlier items themselves are a start for the swaps (deleted ones filled in after snapping).
+    seedRows = concat32i(prevRows, extra);
   } else {
     seedRows = await seedKMeansPlusPlus(rows, k, backend, rng, undefined, f > 0 ? { given: fixedPoints, exclude: given.fixedRows } : {});
     points = rows.gather(seedRows);
@@ -150,11 +150,15 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   points = withFixed(points);
   const uniform = new Float64Array(total).fill(1 / total);
   const seededD2 = await stageD2(points, uniform);
-  const stability = stabilityTerms(prev?.strength ?? 0, seededD2, k, s);
-  const anchors: DescentAnchors | undefined =
-    kp > 0 && stability.threshold > 0
-      ? { points: prevPoints, active: Uint8Array.from({ length: kp }, () => 1), coefficient: stability.threshold, radius: stability.radius }
-      : undefined;
+  const threshold = stabilityThreshold(prev?.strength ?? 0, seededD2, k);
+  let anchors: DescentAnchors | undefined;
+  if (kp > 0 && threshold > 0) {
+    // ρⱼ: distance from the earlier position to its snapCandidates-th nearest row, the ball within
+    // which snapping can still return the earlier item (at least 1% of s, for duplicate rows).
+    const near = await nearestCandidates(rows, backend, prevPoints, kp, o.snapCandidates);
+    const radius = Float64Array.from({ length: kp }, (_, j) => Math.max(Math.sqrt(Math.max(near.sqDist[j * near.m + near.m - 1], 0)), 0.01 * s));
+    anchors = { points: prevPoints, active: new Uint8Array(kp).fill(1), coefficient: threshold, radius };
+  }
   endPhase('seed');
   checkAbort();
 
@@ -255,10 +259,12 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   const slotOf = new Map(poolRows.map((r, i) => [r, i]));
   const columns = new KernelColumns(backend, kernel, withFixed(rows.gather(poolRows)), rowSlots + f, d);
   let bonus: Float64Array | undefined;
-  if (stability.threshold > 0 && kp > 0) {
+  if (threshold > 0 && kp > 0) {
     bonus = new Float64Array(rowSlots + f);
-    for (const r of prevRows) if (r >= 0) bonus[slotOf.get(r)!] = stability.threshold;
+    for (const r of prevRows) if (r >= 0) bonus[slotOf.get(r)!] = threshold;
   }
+  // An earlier item that no longer exists is stood in for by its point's nearest free candidate.
+  if (seedRows && seedRows.some((r) => r < 0)) seedRows = fillDeleted(seedRows, cand, given.fixedRows);
   const frozenSlots = f > 0 ? Uint8Array.from({ length: total }, (_, j) => (j >= k ? 1 : 0)) : undefined;
   const refineFrom = (slots: Int32Array, weights: Float64Array) =>
     refineBySwaps(columns, kernel, {
@@ -448,18 +454,36 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
 type RefineStart = SelectionResult['trace']['refineStart'];
 
 /**
- * The stability terms of a re-selection with strength λ, warm-start discrepancy D²₀ (the earlier
- * items, k-means++ seeds for any missing, and the fixed items, uniform weights: the `seeded` stage)
- * and data scale s:
- *   threshold τ = λ · max(D²₀, 0) / k,   radius = s.
- * Descent: R(p) = τ · Σ_{j earlier} min(1, |pⱼ − qⱼ|²/s²) (DescentAnchors), so moving a point
- * farther than s from its earlier position costs τ. Swaps: the search minimises D²(S) − τ·|S ∩ earlier|,
- * so an earlier item is replaced only when that lowers D² by more than τ. Both are in units of D²
- * and so scale-free: λ is the fraction of the warm start's D² that keeping all k earlier items may
- * cost (k items × τ each); λ = 0 is a plain warm start (no penalty, no snap preference).
+ * The threshold of a re-selection with strength λ and warm-start discrepancy D²₀ (the earlier
+ * items, k-means++ seeds for any missing, and the fixed items, uniform weights: the `seeded` stage):
+ *   τ = λ · max(D²₀, 0) / k.
+ * Swaps: the search minimises D²(S) − τ·|S ∩ earlier|, so an earlier item is replaced only when
+ * that lowers D² by more than τ (or brings in another earlier item). Descent (DescentAnchors):
+ *   R(p) = τ · Σ_{j earlier} min(1, |pⱼ − qⱼ|²/ρⱼ²),
+ * ρⱼ the distance from qⱼ to its snapCandidates-th nearest row: leaving the ball in which snapping
+ * can still return the earlier item costs τ, as replacing it does at the swaps. Both are in units
+ * of D², so λ is scale-free: the fraction of the warm start's D² that keeping all k earlier items
+ * may cost (k items × τ each); λ ≥ k freezes them (no swap can gain more than D²₀). λ = 0 is a
+ * plain warm start (no penalty, no snap preference, no threshold).
  */
-export function stabilityTerms(strength: number, warmStartD2: number, k: number, scale: number): { threshold: number; radius: number } {
-  return { threshold: (strength * Math.max(warmStartD2, 0)) / k, radius: scale };
+export function stabilityThreshold(strength: number, warmStartD2: number, k: number): number {
+  return (strength * Math.max(warmStartD2, 0)) / k;
+}
+
+/** Rows −1 of a start replaced by the nearest candidate of that point not used elsewhere; null when none is left. */
+function fillDeleted(start: Int32Array, cand: CandidateLists, fixedRows: ReadonlySet<number>): Int32Array | null {
+  const used = new Set<number>([...fixedRows, ...Array.from(start).filter((r) => r >= 0)]);
+  const out = Int32Array.from(start);
+  for (let j = 0; j < out.length; j++) {
+    if (out[j] >= 0) continue;
+    for (let r = 0; r < cand.m && out[j] < 0; r++) {
+      const row = cand.index[j * cand.m + r];
+      if (row >= 0 && !used.has(row)) out[j] = row;
+    }
+    if (out[j] < 0) return null;
+    used.add(out[j]);
+  }
+  return out;
 }
 
 function concat(a: Float32Array, b: Float32Array): Float32Array {

@@ -65,7 +65,9 @@ export class ModelRegistry {
       const entries = await readdir(dir, { withFileTypes: true });
       files = entries.filter((e) => e.isFile() && e.name.endsWith('.json')).map((e) => e.name).sort();
     } catch (err) {
-      log.warn({ dir, err }, 'models directory cannot be read; no embedding models are available');
+      // No folder is the usual case without embedding models; anything else deserves a warning.
+      if ((err as NodeJS.ErrnoException).code === 'ENOENT') log.info({ dir }, 'no models directory; no embedding models are available');
+      else log.warn({ dir, err }, 'models directory cannot be read; no embedding models are available');
       return new ModelRegistry(new Map());
     }
     const models = new Map<string, ModelEntry | ReadyModel>();

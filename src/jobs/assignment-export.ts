@@ -10,8 +10,8 @@ export type AssignmentFormat = 'ndjson' | 'csv';
 const BLOCK = 8192;
 
 /**
- * Streams every item's nearest representative: id, index, rank and id of the representative, and
- * the distance in the selection space. Reads the dataset's items.jsonl line by line and
+ * Streams every item's nearest representative: id, index, rank and id of the representative, the
+ * distance in the selection space, and whether it is a new representative or a fixed item. Reads the dataset's items.jsonl line by line and
  * assignments.bin in blocks, so memory stays small whatever the dataset's size.
  */
 export async function* assignmentRows(
@@ -20,13 +20,14 @@ export async function* assignmentRows(
   rows: number,
   representativeIds: readonly string[],
   format: AssignmentFormat,
+  fixedIds: readonly string[] = [],
 ): AsyncGenerator<string> {
   const fh = await open(assignmentsFile, 'r');
   const input = createReadStream(itemsFile, 'utf8');
   const lines = createInterface({ input, crlfDelay: Infinity });
   try {
     if ((await fh.stat()).size !== rows * 8) throw new CairnError('DATASET_STORE_CORRUPT', 'assignments.bin does not match the dataset.');
-    if (format === 'csv') yield 'id,index,rank,representative_id,distance\n';
+    if (format === 'csv') yield 'id,index,rank,representative_id,distance,representative_kind\n';
     const rank = Buffer.alloc(BLOCK * 4);
     const dist = Buffer.alloc(BLOCK * 4);
     let i = 0;
@@ -47,11 +48,14 @@ export async function* assignmentRows(
       const id = (JSON.parse(line) as { id: string }).id;
       const r = rank.readInt32LE((i - blockStart) * 4);
       const d = dist.readFloatLE((i - blockStart) * 4);
-      const repId = representativeIds[r - 1];
+      // Rank −(j+1): the nearest is fixed item j (an item that counted as a representative already).
+      const isFixed = r < 0;
+      const repId = isFixed ? fixedIds[-r - 1] : representativeIds[r - 1];
+      const kind = isFixed ? 'fixed' : 'new';
       out.push(
         format === 'ndjson'
-          ? JSON.stringify({ id, index: i, rank: r, representativeId: repId, distance: d }) + '\n'
-          : `${csvCell(id)},${i},${r},${csvCell(repId)},${d}\n`,
+          ? JSON.stringify({ id, index: i, rank: isFixed ? null : r, representativeId: repId, distance: d, representativeKind: kind }) + '\n'
+          : `${csvCell(id)},${i},${isFixed ? '' : r},${csvCell(repId)},${d},${kind}\n`,
       );
       i++;
     }

@@ -1,5 +1,6 @@
 /**
- * assignments.bin: for every row, the rank (1-based, int32) of its nearest representative, then
+ * assignments.bin: for every row, the rank (1-based, int32) of its nearest representative (−(j+1)
+ * when it is fixed item j), then
  * for every row its distance to it (float32), little-endian — 8 bytes a row, written once by the
  * selection and streamed out by the export without holding it whole in memory.
  */

@@ -11,8 +11,9 @@ import { labelCodes } from '../data/label-codes.js';
 import { encodeAssignments } from './assignments.js';
 import type { ProcessorContext } from './processor.js';
 import { EmbeddingCache } from './embedding-cache.js';
-import { ensureEmbedding } from './embedding-step.js';
+import { ensureEmbedding, modelForJob } from './embedding-step.js';
 import { resultDocument, resultSummary, type ResultDocument } from './result-document.js';
+import { resolveFixed, resolvePrevious, type GivenSource } from './given-vectors.js';
 import type { SelectSpec } from './task.js';
 
 /**
@@ -43,9 +44,17 @@ export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
   }
   const labels = meta.hasLabels ? labelCodes(items.labels) : null;
 
+  // Items the job names, gathered before the selection transforms the rows in place.
+  const given: GivenSource = { ctx, datasetId: spec.datasetId, rows, ids: items.ids, model: spec.embedding ? await modelForJob(ctx.modelsDir, spec.embedding) : null };
+  const fixed = spec.fixed ? await resolveFixed(given, spec.fixed) : null;
+  const previous = spec.previous ? await resolvePrevious(given, spec.previous) : null;
+  // An unconstrained run to compare a stable re-selection with needs the untouched rows too.
+  const plainRows = previous ? new DenseRows(Float32Array.from(rows.read(0, rows.rows)), rows.rows, rows.cols) : null;
+  const f = fixed?.ids.length ?? 0;
+
   const saved = await store.readOptional(ref, 'checkpoint.json');
-  // The checkpoint's points live in the selection space, whose width depends on the space option.
-  const resume = saved ? decodeCheckpoint(saved, options.k) : null;
+  // The checkpoint holds k + f points (the fixed ones never move), in the selection space.
+  const resume = saved ? decodeCheckpoint(saved, options.k + f) : null;
 
   const backend = await createBackend('onnx', ctx.computeThreads > 0 ? { threads: ctx.computeThreads } : {});
   try {
@@ -55,8 +64,11 @@ export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
       labels,
       signal: ctx.signal,
       sourceIsScratch: true,
-      // With an embedding, the selection's own progress fills the last 70%.
-      onProgress: (p) => ctx.onProgress(spec.embedding ? { ...p, fraction: 0.3 + 0.7 * p.fraction } : p),
+      fixed: fixed?.items,
+      previous: previous?.previous,
+      // With an embedding, the selection's own progress fills the last 70% (60%, and then the
+      // unconstrained comparison run 10%, for a stable re-selection).
+      onProgress: (p) => ctx.onProgress({ ...p, fraction: (spec.embedding ? 0.3 : 0) + (previous ? 0.85 : 1) * (spec.embedding ? 0.7 : 1) * p.fraction }),
       checkpoint: {
         everyMs: ctx.checkpointEveryMs,
         resume,
@@ -68,7 +80,18 @@ export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
     });
     if (!assignments) throw new Error('the selection reported no assignments');
     await store.writeAtomic(ref, 'assignments.bin', assignments);
-    const doc: ResultDocument = { ...resultDocument(result, items, meta, { id: spec.datasetId, source: meta.sourceName }), ...(embedding ? { embedding } : {}) };
+    let stabilityCost: ResultDocument['stabilityCost'];
+    if (previous && plainRows) {
+      // What stability costs: the same selection without the earlier set (same seed, same fixed items).
+      const plain = await select(plainRows, spec.options, { backend, signal: ctx.signal, sourceIsScratch: true, fixed: fixed?.items });
+      const value = result.discrepancy.value;
+      stabilityCost = { previousJobId: previous.jobId, droppedPrevious: previous.dropped, unconstrainedD2: plain.discrepancy.value, ratio: plain.discrepancy.value > 0 ? value / plain.discrepancy.value : null };
+    }
+    const doc: ResultDocument = {
+      ...resultDocument(result, items, meta, { id: spec.datasetId, source: meta.sourceName }, fixed ? { ids: fixed.ids, datasetId: spec.fixed!.datasetId } : null),
+      ...(embedding ? { embedding } : {}),
+      ...(stabilityCost ? { stabilityCost } : {}),
+    };
     // The report page's map of a vector dataset: a projection of a row sample on its first two
     // principal axes, computed here rather than on the API's event loop.
     if (!existsSync(join(dataset.dir, 'thumbs')) && !spec.embedding) {

@@ -43,11 +43,26 @@ export interface EmbeddingChoice {
   shards: Array<{ id: string; start: number; count: number }>;
 }
 
+/** Items that already count as representatives: ids in the job's dataset, or in another one. */
+export interface FixedChoice {
+  ids: string[];
+  /** The dataset the ids belong to; default the job's own. */
+  datasetId: string;
+}
+
+/** An earlier job to stay close to (stable re-selection). */
+export interface PreviousChoice {
+  jobId: string;
+  strength?: number;
+}
+
 export interface SelectSpec {
   kind: 'job';
   datasetId: string;
   options: SelectOptionsInput;
   embedding?: EmbeddingChoice;
+  fixed?: FixedChoice;
+  previous?: PreviousChoice;
   name?: string;
   createdAt: string;
 }

@@ -136,9 +136,10 @@ describe.each(modes)('API end to end ($name)', (mode) => {
     const csv = await request(url).get(`/v1/jobs/${jobId}/assignments?format=csv`);
     expect(csv.headers['content-type']).toMatch(/text\/csv/);
     const rows = csv.text.trim().split('\n');
-    expect(rows[0]).toBe('id,index,rank,representative_id,distance');
+    expect(rows[0]).toBe('id,index,rank,representative_id,distance,representative_kind');
     expect(rows).toHaveLength(data.rows + 1);
     expect(rows[1].split(',').slice(0, 4)).toEqual([lines[0].id, '0', String(lines[0].rank), lines[0].representativeId]);
+    expect(rows[1].split(',')[5]).toBe('new');
   });
 
   it('lists the tenant’s datasets and jobs', async () => {

@@ -98,6 +98,60 @@ describe('selection checkpoints', () => {
     expect(resumed.trace.loss).toEqual(straight.trace.loss);
   });
 
+  it('with fixed items and a previous selection, a resumed selection (k + f points in the checkpoint) returns the uninterrupted result', async () => {
+    const rows = () => new DenseRows(Float32Array.from(data), n, d);
+    const fixedRows = Int32Array.of(10, 20, -1);
+    const fixedVectors = new Float32Array(3 * d);
+    fixedVectors.set(rows().gather([10, 20]));
+    fixedVectors.set([3, 3, 3, 3], 2 * d);
+    // Earlier representatives: 5 of k = 7 (k-means++ completes them), one of them deleted since.
+    const prevRows = Int32Array.of(100, 200, 300, -1, 500);
+    const given = () => ({
+      fixed: { vectors: fixedVectors, rows: fixedRows },
+      previous: { vectors: rows().gather([100, 200, 300, 400, 500]), rows: prevRows, strength: 0.5 },
+    });
+    const straight = await select(rows(), options, { backend, ...given() });
+
+    const saved: string[] = [];
+    let calls = 0;
+    await select(rows(), options, {
+      backend,
+      ...given(),
+      now: () => calls++,
+      checkpoint: { everyMs: 1, save: (cp) => void saved.push(encodeCheckpoint(cp)) },
+    });
+    expect(saved.length).toBeGreaterThan(50);
+    const middle = decodeCheckpoint(saved[Math.floor(saved.length / 2)], options.k + 3, d);
+    expect(middle).not.toBeNull();
+    expect(middle!.state.iteration).toBeGreaterThan(10);
+    // The fixed points are in the checkpoint, unmoved since the first one.
+    const first = decodeCheckpoint(saved[0], options.k + 3, d)!;
+    expect(Array.from(middle!.state.points.subarray(options.k * d))).toEqual(Array.from(first.state.points.subarray(options.k * d)));
+
+    // A fresh start would give the same result too: the first iteration reported shows it resumed.
+    const firstIteration = (seen: number[]) => (p: { phase: string; iteration?: number }) => void (p.phase === 'descent' && p.iteration !== undefined && seen.push(p.iteration));
+    const seen: number[] = [];
+    const resumedFrom = middle!.state.iteration; // the resumed descent continues in this very state
+    const resumed = await select(rows(), options, { backend, ...given(), onProgress: firstIteration(seen), checkpoint: { save: () => undefined, resume: middle } });
+    expect(seen[0]).toBe(resumedFrom + 1);
+    expect(resumed.representatives).toEqual(straight.representatives);
+    expect(resumed.fixed).toEqual(straight.fixed);
+    expect(resumed.stability).toEqual(straight.stability);
+    expect(resumed.coverageGain).toEqual(straight.coverageGain);
+    expect(resumed.discrepancy.value).toBe(straight.discrepancy.value);
+    expect(resumed.trace.iterations).toBe(straight.trace.iterations);
+    expect(resumed.trace.loss).toEqual(straight.trace.loss);
+    // A checkpoint of the plain selection (k points) does not fit this one: it starts afresh, correctly.
+    const plainSaved: string[] = [];
+    let plainCalls = 0;
+    await select(rows(), options, { backend, now: () => plainCalls++, checkpoint: { everyMs: 1, save: (cp) => void plainSaved.push(encodeCheckpoint(cp)) } });
+    const plainMiddle = decodeCheckpoint(plainSaved[Math.floor(plainSaved.length / 2)], options.k, d);
+    const seenAfresh: number[] = [];
+    const mismatched = await select(rows(), options, { backend, ...given(), onProgress: firstIteration(seenAfresh), checkpoint: { save: () => undefined, resume: plainMiddle } });
+    expect(seenAfresh[0]).toBe(1);
+    expect(mismatched.representatives).toEqual(straight.representatives);
+  });
+
   it('a damaged or mismatched checkpoint text decodes to null, so the descent starts afresh', () => {
     expect(decodeCheckpoint('{"version":1,"state":', 7, d)).toBeNull();
     expect(decodeCheckpoint(JSON.stringify({ version: 2 }), 7, d)).toBeNull();

@@ -81,6 +81,13 @@ function checkFixedIdentities(r: SelectionResult, n: number, fixedRows: number[]
   expect(gain.withNew).toBe(r.discrepancy.value);
   expect(gain.gain).toBeCloseTo(gain.fixedOnly - gain.withNew, 12);
   expect(r.discrepancy.prefix).toHaveLength(r.k);
+  for (const w of r.coverage.worstCovered) {
+    if (w.nearestRank === 0) expect(w.nearestFixed).toBeGreaterThanOrEqual(0);
+    else expect(w.nearestFixed).toBeUndefined();
+    expect(w.nearestFixed ?? 0).toBeLessThan(fixedRows.length);
+    expect(w.nearestRank).toBeLessThanOrEqual(r.k);
+  }
+  expect(r.coverage.worstCovered.some((w) => w.nearestRank === 0)).toBe(true);
 }
 
 describe('fixed items', () => {

