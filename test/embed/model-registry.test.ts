@@ -1,4 +1,5 @@
 import { writeFile } from 'node:fs/promises';
+import { writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { Rng } from '../../src/core/random.js';
@@ -113,9 +114,18 @@ describe('model registry', () => {
     expect(err.details.reason).toMatchObject({ code: 'MODEL_OUTPUT_DIM_MISMATCH' });
   });
 
-  it('a missing models directory gives an empty registry and a warning, not an exception', async () => {
+  it('a missing models directory gives an empty registry and an info line (embedding is optional), not an exception', async () => {
     const { lines, log } = recordingLog();
     const empty = await ModelRegistry.load(join(scratch.dir, 'nope'), log);
+    expect(empty.list()).toEqual([]);
+    expect(lines.map((l) => l.level)).toEqual(['info']);
+  });
+
+  it('an unreadable models path (a file, not a folder) gives an empty registry and a warning', async () => {
+    const { lines, log } = recordingLog();
+    const file = join(scratch.dir, 'not-a-folder');
+    writeFileSync(file, 'x');
+    const empty = await ModelRegistry.load(file, log);
     expect(empty.list()).toEqual([]);
     expect(lines.map((l) => l.level)).toEqual(['warn']);
   });
