@@ -1,8 +1,6 @@
 import { createHash, randomBytes } from 'node:crypto';
-import { createReadStream, createWriteStream } from 'node:fs';
 import { mkdir, open, readFile, rename, rm, stat, writeFile } from 'node:fs/promises';
 import { join } from 'node:path';
-import { pipeline } from 'node:stream/promises';
 import type { ModelDescription } from '../embed/model-description.js';
 
 /**
@@ -57,17 +55,16 @@ export class EmbeddingCache {
   /** Joins the shards (in row order) into matrix.f32, records meta.json, then drops the shards. */
   async assemble(shards: Array<{ start: number; count: number }>, meta: EmbeddingMeta): Promise<void> {
     const tmp = `${this.matrixPath}.tmp-${randomBytes(6).toString('hex')}`;
-    const out = createWriteStream(tmp);
+    const out = await open(tmp, 'w');
     try {
-      for (const s of [...shards].sort((a, b) => a.start - b.start)) {
-        await pipeline(createReadStream(this.shardPath(s.start, s.count)), out, { end: false });
-      }
-      await new Promise<void>((resolve, reject) => out.end((err?: Error | null) => (err ? reject(err) : resolve())));
+      // A shard is at most CAIRN_EMBED_SHARD_ROWS vectors: read whole, appended in row order.
+      for (const s of [...shards].sort((a, b) => a.start - b.start)) await out.write(await readFile(this.shardPath(s.start, s.count)));
+      await out.close();
       const size = (await stat(tmp)).size;
       if (size !== meta.rows * meta.dim * 4) throw new Error(`embedding shards hold ${size} bytes, expected ${meta.rows * meta.dim * 4}`);
       await rename(tmp, this.matrixPath);
     } catch (err) {
-      out.destroy();
+      await out.close().catch(() => undefined);
       await rm(tmp, { force: true });
       throw err;
     }

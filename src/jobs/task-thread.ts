@@ -1,3 +1,5 @@
+import { readlinkSync } from 'node:fs';
+import { setPriority } from 'node:os';
 import { parentPort, workerData } from 'node:worker_threads';
 import pino from 'pino';
 import { runAttempt } from './task-runner.js';
@@ -23,6 +25,7 @@ export interface TaskThreadData {
 export type TaskThreadMessage = { type: 'state'; state: TaskState } | { type: 'done'; outcome: string };
 
 const data = workerData as TaskThreadData;
+lowerThreadPriority();
 const port = parentPort!;
 const shutdown = new AbortController();
 port.on('message', (m: unknown) => {
@@ -43,3 +46,18 @@ const result = await runAttempt({
 });
 port.postMessage({ type: 'done', outcome: result.outcome } satisfies TaskThreadMessage);
 port.close();
+
+/**
+ * The API's event loop shares the cores with this thread: on Linux a thread has a nice value of its
+ * own, and the threads it starts (onnxruntime's) inherit it, so lowering this thread's priority
+ * keeps status polls fast while a selection runs and costs the selection nothing on an idle machine.
+ * Elsewhere (no /proc/thread-self) the thread keeps the default priority.
+ */
+function lowerThreadPriority(): void {
+  try {
+    const tid = Number(readlinkSync('/proc/thread-self').split('/').pop());
+    if (Number.isInteger(tid) && tid > 0) setPriority(tid, 10);
+  } catch {
+    // Not Linux, or not permitted: run at the default priority.
+  }
+}
