@@ -78,6 +78,8 @@ const WARMUP = flag('--warmup', 2);
 const ROWS = flag('--rows', 200_000);
 const COLS = flag('--cols', 64);
 const K = flag('--k', 64);
+/** Requests per second per connection (a dashboard polling on a timer); unset: closed loop, as fast as answers come. */
+const RATE = flag('--rate', 0);
 const IDLE = process.argv.includes('--idle');
 const TARGET_P99_MS = 20;
 
@@ -180,7 +182,9 @@ async function jobState(base, jobId) {
 // Load.
 
 function cannon(url, seconds) {
-  return autocannon({ url, connections: CONNECTIONS, duration: seconds, pipelining: 1, timeout: 10 });
+  // With a rate, autocannon corrects for coordinated omission (a late answer delays the next send;
+  // latencies are counted from when the request was due), so paced figures are not flattered.
+  return autocannon({ url, connections: CONNECTIONS, duration: seconds, pipelining: 1, timeout: 10, ...(RATE > 0 ? { connectionRate: RATE } : {}) });
 }
 
 /** CPU seconds (user + system) of a process so far, from /proc; null where there is none. */
