@@ -24,7 +24,11 @@ export async function* assignmentRows(
 ): AsyncGenerator<string> {
   const fh = await open(assignmentsFile, 'r');
   const input = createReadStream(itemsFile, 'utf8');
-  const lines = createInterface({ input, crlfDelay: Infinity });
+  const rl = createInterface({ input, crlfDelay: Infinity });
+  // The iterator is taken at once: readline emits lines as soon as the file is read, and lines (and
+  // the end) emitted before an iterator exists are lost, so iterating after the awaits below could
+  // wait for ever on a small file.
+  const lines = rl[Symbol.asyncIterator]();
   try {
     if ((await fh.stat()).size !== rows * 8) throw new CairnError('DATASET_STORE_CORRUPT', 'assignments.bin does not match the dataset.');
     if (format === 'csv') yield 'id,index,rank,representative_id,distance,representative_kind\n';
@@ -34,7 +38,8 @@ export async function* assignmentRows(
     let blockStart = 0;
     let blockCount = 0;
     let out: string[] = [];
-    for await (const line of lines) {
+    for (let next = await lines.next(); !next.done; next = await lines.next()) {
+      const line = next.value;
       if (i >= blockStart + blockCount) {
         if (out.length) yield out.join('');
         out = [];
@@ -62,7 +67,7 @@ export async function* assignmentRows(
     if (out.length) yield out.join('');
     if (i !== rows) throw new CairnError('DATASET_STORE_CORRUPT', 'items.jsonl has fewer lines than the dataset has rows.');
   } finally {
-    lines.close();
+    rl.close();
     input.destroy();
     await fh.close();
   }
