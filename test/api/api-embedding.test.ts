@@ -143,3 +143,42 @@ describe.each(modes)('API: embedding and PCA spaces ($name)', (mode) => {
     expect([notImages.status, notImages.body.error.code]).toEqual([409, 'DATASET_NOT_IMAGES']);
   });
 });
+
+/** The demo scenario's picture archive (scripts/demo-data.mjs), in the embedding space of the demo model and in a PCA space. */
+describe('API: the demo image archive in embedding and PCA spaces', () => {
+  let t: TestServer;
+  let url: string;
+  let datasetId: string;
+
+  beforeAll(async () => {
+    const { mkdtempSync } = await import('node:fs');
+    const { tmpdir } = await import('node:os');
+    const root = mkdtempSync(join(tmpdir(), 'cairn-demo-archive-'));
+    t = await testServer({ CAIRN_MODELS_DIR: modelsDir(root), CAIRN_EMBED_SHARD_ROWS: '50' });
+    url = t.server.url;
+    // @ts-expect-error a plain .mjs script without type declarations
+    const { writePartsArchive } = (await import('../../scripts/demo-data.mjs')) as { writePartsArchive: (path: string, count: number, seed: number) => Promise<Record<string, number>> };
+    const archive = join(root, 'parts.tar.gz');
+    await writePartsArchive(archive, 150, 7);
+    datasetId = (await request(url).post('/v1/datasets').attach('file', archive, 'parts-images.tar.gz')).body.id;
+    expect(await settle(url, `/v1/datasets/${datasetId}`)).toMatchObject({ status: 'completed', rows: 150, hasImages: true });
+  }, 120_000);
+  afterAll(async () => t?.stop());
+
+  for (const [space, body, dims] of [
+    ['the demo model’s embedding', { embedding: { model: DEMO_MODEL_NAME } }, 64],
+    ['pca:16 of the pixels', { space: 'pca:16' }, 16],
+  ] as const) {
+    it(`selects 8 representatives in ${space}: better than random picks, several part kinds`, async () => {
+      const job = await request(url).post('/v1/jobs').send({ datasetId, k: 8, seed: 1, ...body });
+      expect(job.status).toBe(202);
+      expect((await settle(url, `/v1/jobs/${job.body.id}`)).status).toBe('completed');
+      const result = (await request(url).get(`/v1/jobs/${job.body.id}/result`)).body as ResultDocument;
+      expect(result.dims).toBe(dims);
+      expect(result.representatives).toHaveLength(8);
+      expect(result.discrepancy.ratioToRandom!).toBeLessThan(1);
+      // The labels are the part kinds (the archive's folders); 8 picks cover at least 3 of the 5 common ones.
+      expect(new Set(result.representatives.map((r) => r.label)).size).toBeGreaterThanOrEqual(3);
+    }, 60_000);
+  }
+});
