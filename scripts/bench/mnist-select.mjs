@@ -6,7 +6,7 @@
 // count for both. Their picks are then scored here with the same code (cairn's D² functions on the
 // raw pixels), never with a tool's own report, so neither can flatter itself.
 import { spawnSync } from 'node:child_process';
-import { existsSync, rmSync } from 'node:fs';
+import { rmSync } from 'node:fs';
 import { cp, mkdtemp, readFile, symlink, writeFile } from 'node:fs/promises';
 import { createRequire } from 'node:module';
 import os from 'node:os';
@@ -14,6 +14,7 @@ import { dirname, join, resolve } from 'node:path';
 import { fileURLToPath, pathToFileURL } from 'node:url';
 import { measureProcess, hasGnuTime } from './lib/measure.mjs';
 import { writeNpyFloat32 } from './lib/npy.mjs';
+import { buildDist, uptime } from './lib/machine.mjs';
 
 const ROOT = resolve(dirname(fileURLToPath(import.meta.url)), '..', '..');
 const PEER = join(ROOT, 'scripts', 'bench', 'mnist-peer.py');
@@ -33,30 +34,9 @@ const SEED = option('--seed', 0);
 // neighbours only ever add time, so the minimum is the least contaminated sample.
 const REPEATS = Math.max(1, option('--repeats', 1));
 
-const loadavg = () => os.loadavg().map((v) => v.toFixed(2)).join(' ');
-const uptime = () => {
-  const r = spawnSync('uptime', { encoding: 'utf8' });
-  return r.status === 0 ? r.stdout.trim() : `load average: ${loadavg()}`;
-};
 
-// --- build -------------------------------------------------------------------------------------
-// Other people edit src/ concurrently, so a build can report type errors on their half-finished
-// work. tsc still emits what it can (noEmitOnError is off), so dist/ is then the current src/ as far
-// as it compiles; the output says so rather than hiding it.
-if (!flag('--no-build')) {
-  const t = Date.now();
-  const b = spawnSync('npm', ['run', 'build'], { cwd: ROOT, encoding: 'utf8' });
-  if (b.status !== 0) {
-    if (!existsSync(join(ROOT, 'dist', 'cli', 'main.js'))) {
-      process.stderr.write(`npm run build failed and there is no dist/:\n${b.stdout}${b.stderr}`);
-      process.exit(1);
-    }
-    const errors = (b.stdout + b.stderr).split('\n').filter((l) => /error TS\d+/.test(l));
-    console.log(`WARNING: npm run build reported ${errors.length} type error(s); benchmarking dist/ as emitted:\n${errors.slice(0, 5).map((l) => `  ${l}`).join('\n')}`);
-  } else {
-    console.log(`build: npm run build ok (${((Date.now() - t) / 1000).toFixed(1)} s)`);
-  }
-}
+// --- build (see lib/machine.mjs) ----------------------------------------------------------------
+if (!flag('--no-build')) buildDist(ROOT);
 
 // A private copy of dist/: others may rebuild dist/ while this bench runs (it happened), and a
 // child started minutes later must be the same cairn that the first one was and that scores them.

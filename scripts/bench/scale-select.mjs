@@ -1,0 +1,151 @@
+#!/usr/bin/env node
+// cairn vs a MiniBatchKMeans peer at scale: 1,000,000 × 128 float32 rows from a 64-Gaussian mixture.
+// Usage: node scripts/bench/scale-select.mjs [--rows 1000000] [--k 256] [--seed 0] [--sample 20000] [--no-build]
+//
+// As in mnist-select.mjs, both tools run as whole child processes on the same .npy (wall time from
+// spawn to exit, peak RSS), and both picks are scored here with the same code: cairn's D² functions
+// from dist/ (ONNX backend), against a common seeded random sample of the rows, with the energy
+// kernel at cairn's own scale (kernel.a from cairn's result JSON).
+import { rmSync } from 'node:fs';
+import { cp, mkdtemp, readFile, symlink, writeFile } from 'node:fs/promises';
+import os from 'node:os';
+import { dirname, join, resolve } from 'node:path';
+import { fileURLToPath, pathToFileURL } from 'node:url';
+import { measureProcess, hasGnuTime } from './lib/measure.mjs';
+import { writeNpyFloat32 } from './lib/npy.mjs';
+import { buildDist, loadavg, uptime } from './lib/machine.mjs';
+
+const ROOT = resolve(dirname(fileURLToPath(import.meta.url)), '..', '..');
+const PEER = join(ROOT, 'scripts', 'bench', 'scale-peer.py');
+const PYTHON = '/usr/bin/python3';
+const TARGETS = { wall: 1.0, rss: 0.5, d2: 1.0 };
+
+const argv = process.argv.slice(2);
+const flag = (name) => argv.includes(name);
+const option = (name, fallback) => {
+  const i = argv.indexOf(name);
+  return i >= 0 ? Number(argv[i + 1]) : fallback;
+};
+const N = option('--rows', 1_000_000);
+const D = 128;
+const COMPONENTS = 64;
+const K = option('--k', 256);
+const SEED = option('--seed', 0);
+const SAMPLE = Math.min(option('--sample', 20_000), N);
+
+
+// --- build (as mnist-select.mjs) ---------------------------------------------------------------
+if (!flag('--no-build')) buildDist(ROOT);
+
+// Private snapshot of dist/ so a concurrent rebuild cannot change cairn mid-bench.
+const work = await mkdtemp(join(os.tmpdir(), 'cairn-bench-scale-'));
+process.on('exit', () => rmSync(work, { recursive: true, force: true }));
+for (const sig of ['SIGINT', 'SIGTERM']) process.on(sig, () => process.exit(130));
+const SNAP = join(work, 'cairn');
+await cp(join(ROOT, 'dist'), join(SNAP, 'dist'), { recursive: true });
+await writeFile(join(SNAP, 'package.json'), '{"type": "module"}\n');
+await symlink(join(ROOT, 'node_modules'), join(SNAP, 'node_modules'), 'dir');
+const CLI = join(SNAP, 'dist', 'cli', 'main.js');
+const dist = (p) => import(pathToFileURL(join(SNAP, 'dist', p)).href);
+const { DenseRows } = await dist('core/rows.js');
+const { constantTerm, dataTermMeans, discrepancyFromTerms } = await dist('core/discrepancy.js');
+const { selfTerm } = await dist('core/descent.js');
+const { Rng } = await dist('core/random.js');
+const { OnnxBackend } = await dist('compute/onnx-backend.js');
+
+// --- data: mixture of 64 Gaussians ---------------------------------------------------------------
+// Centres N(0, 5²) per coordinate, unit-variance noise, component weights ∝ Exp(1) draws (unequal).
+const tGen = Date.now();
+const rng = new Rng(SEED);
+const centres = new Float64Array(COMPONENTS * D);
+for (let i = 0; i < centres.length; i++) centres[i] = 5 * rng.normal();
+const raw = Array.from({ length: COMPONENTS }, () => -Math.log(1 - rng.next()));
+const total = raw.reduce((s, v) => s + v, 0);
+const cdf = [];
+raw.reduce((s, v, i) => (cdf[i] = s + v / total), 0);
+const data = new Float32Array(N * D);
+for (let r = 0; r < N; r++) {
+  const u = rng.next();
+  let c = 0;
+  while (c < COMPONENTS - 1 && u >= cdf[c]) c++;
+  const off = r * D;
+  const co = c * D;
+  for (let j = 0; j < D; j++) data[off + j] = centres[co + j] + rng.normal();
+}
+const npyPath = join(work, 'data.npy');
+const npyBytes = await writeNpyFloat32(npyPath, data, N, D);
+const genSeconds = (Date.now() - tGen) / 1000;
+
+const peerEnv = { ...process.env };
+const unpinned = ['OPENBLAS_CORETYPE', 'OPENBLAS_L2_SIZE'].filter((v) => peerEnv[v] !== undefined);
+for (const v of ['OPENBLAS_CORETYPE', 'OPENBLAS_L2_SIZE']) delete peerEnv[v];
+
+console.log(`scale-select bench: ${N} × ${D} float32, mixture of ${COMPONENTS} Gaussians (centres N(0,5²), unit noise, weights ∝ Exp(1)) → ${(npyBytes / 2 ** 20).toFixed(1)} MiB .npy (generated in ${genSeconds.toFixed(1)} s)`);
+console.log(`machine: ${os.availableParallelism()} cores (${os.cpus()[0]?.model ?? '?'}), ${(os.totalmem() / 2 ** 30).toFixed(1)} GiB, node ${process.version}`);
+console.log(`k ${K}, seed ${SEED}, scoring sample ${SAMPLE} rows; peak RSS via ${hasGnuTime() ? 'GNU time -v' : '/proc VmHWM polling'}`);
+console.log(`peer: ${PYTHON} ${PEER}; ${unpinned.length ? `unset for the peer only: ${unpinned.join(', ')}` : 'no OPENBLAS_* pins in the environment'}`);
+console.log('');
+
+// --- timed runs --------------------------------------------------------------------------------
+const cairnOut = join(work, 'cairn.json');
+const peerOut = join(work, 'peer.json');
+const loadCairn = uptime();
+const mc = await measureProcess(process.execPath, [CLI, 'select', npyPath, '--k', String(K), '--out', cairnOut, '--quiet'], { cwd: ROOT });
+if (mc.code !== 0) throw new Error(`cairn exited with ${mc.code}:\n${mc.stderr}`);
+const cairn = JSON.parse(await readFile(cairnOut, 'utf8'));
+console.log(`cairn: wall ${mc.wallSeconds.toFixed(2)} s, peak RSS ${mc.peakRssMb.toFixed(0)} MB | before: ${loadCairn}`);
+const loadPeer = uptime();
+const mp = await measureProcess(PYTHON, [PEER, npyPath, String(K), String(SEED), peerOut], { cwd: ROOT, env: peerEnv });
+if (mp.code !== 0) throw new Error(`peer exited with ${mp.code}:\n${mp.stderr}`);
+const peer = JSON.parse(await readFile(peerOut, 'utf8'));
+console.log(`peer:  wall ${mp.wallSeconds.toFixed(2)} s, peak RSS ${mp.peakRssMb.toFixed(0)} MB | before: ${loadPeer}`);
+rmSync(npyPath, { force: true });
+console.log('');
+
+// --- scoring (same code for both) ----------------------------------------------------------------
+const full = new DenseRows(data, N, D);
+const sampleIdx = new Rng(SEED + 1).sample(N, SAMPLE);
+const sample = new DenseRows(full.gather(sampleIdx), SAMPLE, D);
+const backend = await OnnxBackend.create();
+const kernel = { kind: 'energy', a: cairn.kernel.a };
+const constant = await constantTerm(sample, backend, kernel, new Rng(SEED));
+
+async function d2(indices, weights) {
+  const k = indices.length;
+  const sum = weights.reduce((s, w) => s + w, 0);
+  const w = Float64Array.from(weights, (v) => v / sum);
+  const points = full.gather(indices);
+  const c = await dataTermMeans(sample, backend, kernel, points, k);
+  const { K: Kmat } = await selfTerm(backend, kernel, points, w, k, D, false);
+  return discrepancyFromTerms(c, Kmat, w, constant.value);
+}
+const d2Cairn = await d2(cairn.representatives.map((r) => r.index), cairn.representatives.map((r) => r.weight));
+const d2Peer = await d2(peer.indices, peer.weights);
+const randomIdx = Array.from(new Rng(SEED + 2).sample(N, K));
+const d2Random = await d2(randomIdx, new Array(K).fill(1 / K));
+await backend.dispose();
+
+const distinct = (a) => new Set(a).size;
+const f = (v, d = 4) => (Number.isFinite(v) ? (Math.abs(v) < 1e-3 && v !== 0 ? v.toExponential(3) : v.toFixed(d)) : 'n/a');
+const row = (...c) => console.log(`  ${String(c[0]).padEnd(8)} ${String(c[1]).padStart(10)} ${String(c[2]).padStart(14)} ${String(c[3]).padStart(14)} ${String(c[4]).padStart(12)}`);
+console.log(`scoring: energy kernel a = ${kernel.a.toPrecision(6)} (cairn's; scale s = ${Number(cairn.scale).toPrecision(6)}), D² against the ${SAMPLE}-row sample (constant exact: ${constant.exact})`);
+row('tool', 'wall s', 'peak RSS MB', 'D² (sample)', 'distinct');
+row('cairn', f(mc.wallSeconds, 2), f(mc.peakRssMb, 0), f(d2Cairn, 5), distinct(cairn.representatives.map((r) => r.index)));
+row('peer', f(mp.wallSeconds, 2), f(mp.peakRssMb, 0), f(d2Peer, 5), distinct(peer.indices));
+row('random', '', '', f(d2Random, 5), K);
+console.log('');
+const ratios = [
+  ['wall', mc.wallSeconds / mp.wallSeconds, TARGETS.wall],
+  ['RSS', mc.peakRssMb / mp.peakRssMb, TARGETS.rss],
+  ['D²', d2Cairn / d2Peer, TARGETS.d2],
+];
+console.log('ratios cairn/peer:');
+for (const [name, v, t] of ratios) console.log(`  ${name.padEnd(5)} ${f(v, 3).padStart(8)}  (target ≤ ${t.toFixed(1)})  ${v <= t ? 'met' : 'MISSED'}`);
+console.log('');
+const secs = cairn.trace?.seconds ?? {};
+const inSelect = Object.values(secs).reduce((s, v) => s + v, 0);
+console.log(`cairn trace.seconds: ${Object.entries(secs).map(([p, v]) => `${p} ${v.toFixed(2)}`).join(', ')}`);
+console.log(`  in select() ${inSelect.toFixed(2)} s; outside (node start, imports, .npy ingest, JSON out) ${(mc.wallSeconds - inSelect).toFixed(2)} s; iterations ${cairn.trace?.iterations}, stop ${cairn.trace?.stopReason}, swaps ${cairn.trace?.swaps}`);
+console.log(`  cairn's own D² ${f(cairn.discrepancy?.value, 6)} (full data); own ratioToRandom ${f(cairn.discrepancy?.ratioToRandom, 3)}`);
+console.log(`peer seconds: ${Object.entries(peer.seconds).map(([p, v]) => `${p} ${v.toFixed(2)}`).join(', ')}; n_iter ${peer.n_iter}, n_steps ${peer.n_steps}; ${JSON.stringify(peer.versions)}`);
+console.log(`load average now: ${loadavg()} (${uptime()})`);
