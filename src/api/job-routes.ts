@@ -85,11 +85,6 @@ export function jobRoutes(app: App, deps: RouteDeps, streams: EventStreams): voi
           // Shards only for an embedding not cached yet: each a child task any worker can run.
           const ranges = cached ? [] : shardRanges(ds.rows, deps.config.CAIRN_EMBED_SHARD_ROWS);
           const shards = ranges.map((rg) => ({ id: `${id}-e${rg.start}`, ...rg }));
-          for (const sh of shards) {
-            const child: TaskRef = { kind: 'embed', tenant, id: sh.id };
-            await store.create(child, { kind: 'embed', datasetId, parentJobId: id, embedding: choice, start: sh.start, count: sh.count, createdAt: new Date().toISOString() });
-            children.push(child);
-          }
           embedding = { ...choice, shards };
           cols = model.description.output.dim;
         }
@@ -107,6 +102,13 @@ export function jobRoutes(app: App, deps: RouteDeps, streams: EventStreams): voi
         if (previous) {
           const earlier = await jobView(reader, ref(tenant, previous.jobId));
           if (earlier.status !== 'completed') throw new CairnError('JOB_NOT_COMPLETED', `The earlier job is ${earlier.status}.`, { jobId: previous.jobId, status: earlier.status });
+        }
+        // Every check has passed: only now the shard tasks and the job are written.
+        for (const sh of embedding?.shards ?? []) {
+          const child: TaskRef = { kind: 'embed', tenant, id: sh.id };
+          const { shards: _all, ...choice } = embedding!;
+          await store.create(child, { kind: 'embed', datasetId, parentJobId: id, embedding: choice, start: sh.start, count: sh.count, createdAt: new Date().toISOString() });
+          children.push(child);
         }
         const r = ref(tenant, id);
         const spec: SelectSpec = { kind: 'job', datasetId, options, name, ...(embedding ? { embedding } : {}), ...(fixed ? { fixed } : {}), ...(previous ? { previous } : {}), createdAt: new Date().toISOString() };

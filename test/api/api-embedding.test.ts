@@ -1,4 +1,4 @@
-import { mkdirSync, writeFileSync } from 'node:fs';
+import { existsSync, mkdirSync, readdirSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import request from 'supertest';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
@@ -141,6 +141,12 @@ describe.each(modes)('API: embedding and PCA spaces ($name)', (mode) => {
     await settle(url, `/v1/datasets/${vectors}`);
     const notImages = await request(url).post('/v1/jobs').send({ datasetId: vectors, k: 2, embedding: { model: DEMO_MODEL_NAME } });
     expect([notImages.status, notImages.body.error.code]).toEqual([409, 'DATASET_NOT_IMAGES']);
+    // A refused job leaves no shard tasks behind (they are written only after every check).
+    const embedDir = join(t.dir, 'tenants', 'local', 'embed');
+    const before = existsSync(embedDir) ? readdirSync(embedDir).length : 0;
+    const tooWide = await request(url).post('/v1/jobs').send({ datasetId: images, k: 2, space: 'pca:100', embedding: { model: DEMO_MODEL_NAME, normalize: true } });
+    expect([tooWide.status, tooWide.body.error.code]).toEqual([400, 'INVALID_ARGUMENT']);
+    expect(existsSync(embedDir) ? readdirSync(embedDir).length : 0).toBe(before);
   });
 });
 
