@@ -1,7 +1,7 @@
 import { CairnError } from '../errors.js';
 import { errorOf } from './task-runner.js';
 import type { TaskStore } from './task-store.js';
-import type { TaskRef, TaskState } from './task.js';
+import { cancelledCode, type TaskRef, type TaskState } from './task.js';
 
 /**
  * Records the cancellation of a task that a queue removed before any runner took it: no runner
@@ -11,9 +11,8 @@ import type { TaskRef, TaskState } from './task.js';
 export async function cancelUnstarted(store: TaskStore, ref: TaskRef): Promise<TaskState | null> {
   try {
     const state = await store.readState(ref);
-    const code = ref.kind === 'job' ? 'SELECTION_CANCELLED' : 'DATASET_INGEST_CANCELLED';
     const now = new Date().toISOString();
-    const next: TaskState = { ...state, status: 'cancelled', error: errorOf(new CairnError(code)), finishedAt: now, updatedAt: now };
+    const next: TaskState = { ...state, status: 'cancelled', error: errorOf(new CairnError(cancelledCode(ref.kind))), finishedAt: now, updatedAt: now };
     await store.writeState(ref, next);
     return next;
   } catch {

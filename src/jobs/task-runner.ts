@@ -6,7 +6,7 @@ import type { Processor } from './processor.js';
 import { selectProcessor } from './select-processor.js';
 import { embedProcessor } from './embed-processor.js';
 import type { TaskStore } from './task-store.js';
-import { isFinal, type TaskError, type TaskKind, type TaskProgress, type TaskRef, type TaskState } from './task.js';
+import { cancelledCode, isFinal, type TaskError, type TaskKind, type TaskProgress, type TaskRef, type TaskState } from './task.js';
 
 const PROCESSORS: Record<TaskKind, Processor> = { dataset: ingestProcessor, job: selectProcessor, embed: embedProcessor };
 
@@ -91,7 +91,7 @@ export async function runAttempt(o: AttemptOptions): Promise<{ outcome: AttemptO
   try {
     if (await store.cancelRequested(ref)) {
       cancelled = true;
-      throw new CairnError(ref.kind === 'job' ? 'SELECTION_CANCELLED' : 'DATASET_INGEST_CANCELLED');
+      throw new CairnError(cancelledCode(ref.kind));
     }
     await write({ ...state, status: 'running', attempt: o.attempt, startedAt: state.startedAt ?? now(), updatedAt: now(), runner: { host: hostname(), pid: process.pid } });
     o.onState?.(state);
@@ -106,7 +106,7 @@ export async function runAttempt(o: AttemptOptions): Promise<{ outcome: AttemptO
     await writing;
     if (!(await store.exists(ref))) return { outcome: 'gone', error: null };
     if (cancelled || (await store.cancelRequested(ref))) {
-      const error = errorOf(new CairnError(ref.kind === 'job' ? 'SELECTION_CANCELLED' : 'DATASET_INGEST_CANCELLED'));
+      const error = errorOf(new CairnError(cancelledCode(ref.kind)));
       await write({ ...state, status: 'cancelled', error, finishedAt: now(), updatedAt: now() });
       o.log?.info({ task: ref }, 'task cancelled');
       o.onState?.(state);

@@ -113,6 +113,11 @@ export interface TaskState {
   runner?: { host: string; pid: number };
 }
 
+/** The error code a cancelled task of this kind ends with (an embedding shard is part of a selection job). */
+export function cancelledCode(kind: TaskKind): 'DATASET_INGEST_CANCELLED' | 'SELECTION_CANCELLED' {
+  return kind === 'dataset' ? 'DATASET_INGEST_CANCELLED' : 'SELECTION_CANCELLED';
+}
+
 export const FINAL_STATUSES: readonly TaskStatus[] = ['completed', 'failed', 'cancelled'];
 
 export function isFinal(status: TaskStatus): boolean {

@@ -1,4 +1,4 @@
-import { existsSync, mkdirSync, readdirSync, writeFileSync } from 'node:fs';
+import { existsSync, mkdirSync, readdirSync, readFileSync, writeFileSync } from 'node:fs';
 import { join } from 'node:path';
 import request from 'supertest';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
@@ -130,6 +130,10 @@ describe.each(modes)('API: embedding and PCA spaces ($name)', (mode) => {
     }
     for (const sh of shards) expect(['cancelled', 'completed']).toContain(sh.status);
     expect(shards.some((sh) => sh.status === 'cancelled')).toBe(true);
+    // A cancelled shard ends as part of the cancelled selection.
+    const cancelled = shards.find((sh) => sh.status === 'cancelled') as unknown as { id: string };
+    const state = JSON.parse(readFileSync(join(t.dir, 'tenants', 'local', 'embed', cancelled.id, 'state.json'), 'utf8')) as { error: { code: string } };
+    expect(state.error.code).toBe('SELECTION_CANCELLED');
   }, 60_000);
 
   it('refuses unknown and invalid models, and embeddings of vector datasets', async () => {
