@@ -1,23 +1,8 @@
-import onnxProto from 'onnx-proto';
+import { attr, DataType, OnnxGraphBuilder as Graph } from './onnx-builder.js';
 
-const { onnx } = onnxProto;
-type INode = onnxProto.onnx.INodeProto;
-type IAttr = onnxProto.onnx.IAttributeProto;
-type ITensor = onnxProto.onnx.ITensorProto;
-type IValueInfo = onnxProto.onnx.IValueInfoProto;
-
-const FLOAT = onnx.TensorProto.DataType.FLOAT;
-const INT32 = onnx.TensorProto.DataType.INT32;
-const INT64 = onnx.TensorProto.DataType.INT64;
-const A = onnx.AttributeProto.AttributeType;
-
-/**
- * Opset 17 (IR 8, the newest IR onnx-proto 8 knows): ReduceSum takes axes as an input (≥ 13) but
- * ReduceSumSquare/ReduceMin still take them as an attribute (input only from 18), Shape has
- * start/end (≥ 15).
- */
-const OPSET = 17;
-const IR_VERSION = 8;
+const FLOAT = DataType.FLOAT;
+const INT32 = DataType.INT32;
+const INT64 = DataType.INT64;
 
 export type KernelKind = 'energy' | 'gaussian';
 export type GraphKey =
@@ -32,76 +17,6 @@ export type GraphKey =
   | `assign:${KernelKind}`
   | 'nearestRows'
   | `gemm:${'n' | 't'}${'n' | 't'}`;
-
-type Dim = string | number;
-
-/**
- * Attributes always carry their type: protobufjs does not infer it from the field set, and ORT
- * refuses an untyped attribute ("Field 'type' of 'attr' is required"); a float given to `i` or an
- * int given to `f` would be silently truncated or zero.
- */
-const attr = {
-  f: (name: string, f: number): IAttr => ({ name, type: A.FLOAT, f }),
-  i: (name: string, i: number): IAttr => ({ name, type: A.INT, i }),
-  ints: (name: string, ints: number[]): IAttr => ({ name, type: A.INTS, ints }),
-  t: (name: string, t: ITensor): IAttr => ({ name, type: A.TENSOR, t }),
-};
-
-class Graph {
-  private readonly nodes: INode[] = [];
-  private readonly inits: ITensor[] = [];
-  private readonly inputs: IValueInfo[] = [];
-  private readonly outputs: IValueInfo[] = [];
-  private seq = 0;
-
-  input(name: string, elemType: number, dims: Dim[]): string {
-    this.inputs.push(valueInfo(name, elemType, dims));
-    return name;
-  }
-
-  /**
-   * Renames the producer's output instead of appending an Identity, which ORT would run as one
-   * more full copy of e.g. the n×k distance matrix.
-   */
-  output(name: string, elemType: number, dims: Dim[], from: string): void {
-    for (const node of this.nodes) {
-      node.input = node.input?.map((v) => (v === from ? name : v));
-      node.output = node.output?.map((v) => (v === from ? name : v));
-    }
-    this.outputs.push(valueInfo(name, elemType, dims));
-  }
-
-  op(opType: string, input: string[], attribute: IAttr[] = [], output = `${opType.toLowerCase()}_${this.seq++}`): string {
-    return this.opN(opType, input, attribute, [output])[0];
-  }
-
-  opN(opType: string, input: string[], attribute: IAttr[], output: string[]): string[] {
-    this.nodes.push({ opType, input, output, attribute, name: output[0] });
-    return output;
-  }
-
-  /** A constant: float (scalar when dims = []) or a 1-D int64 vector. */
-  floats(values: number[], dims: number[] = [values.length]): string {
-    this.inits.push({ name: `c_${this.seq}`, dataType: FLOAT, dims, floatData: values });
-    return `c_${this.seq++}`;
-  }
-
-  int64s(values: number[]): string {
-    this.inits.push({ name: `c_${this.seq}`, dataType: INT64, dims: [values.length], int64Data: values });
-    return `c_${this.seq++}`;
-  }
-
-  encode(name: string): Uint8Array {
-    const graph = { name, node: this.nodes, initializer: this.inits, input: this.inputs, output: this.outputs };
-    const opsetImport = [{ domain: '', version: OPSET }];
-    return onnx.ModelProto.encode(onnx.ModelProto.create({ irVersion: IR_VERSION, producerName: 'cairn', opsetImport, graph })).finish();
-  }
-}
-
-function valueInfo(name: string, elemType: number, dims: Dim[]): IValueInfo {
-  const dim = dims.map((v) => (typeof v === 'number' ? { dimValue: v } : { dimParam: v }));
-  return { name, type: { tensorType: { elemType, shape: { dim } } } };
-}
 
 /** Row-wise squared norms as a column [rows, 1] (one pass, no rows×d temporary). */
 function sqNorms(g: Graph, m: string): string {

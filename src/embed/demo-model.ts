@@ -1,6 +1,6 @@
 import { Rng } from '../core/random.js';
 import type { ModelDescription } from './model-description.js';
-import { DataType, OnnxModelBuilder, attr } from './onnx-model-builder.js';
+import { DataType, OnnxGraphBuilder, attr } from '../compute/onnx-builder.js';
 
 /**
  * A small fixed convolutional feature extractor built in code, so tests and the demo have a real
@@ -85,7 +85,7 @@ function setHandFilters(weight: Float32Array, bias: Float32Array): void {
 /** The serialized model and its description (name 'cairn-demo-conv', output 'embedding', dim 64). */
 export function buildDemoModel(): { onnx: Uint8Array; description: ModelDescription } {
   const description = demoModelDescription();
-  const g = new OnnxModelBuilder();
+  const g = new OnnxGraphBuilder();
   const s = DEMO_INPUT_SIZE;
   let x = g.input(description.input.name, DataType.FLOAT, ['batch', 3, s, s]);
   const { kernel, stride, pad } = DEMO_CONV;

@@ -5,7 +5,7 @@ import sharp from 'sharp';
 import { expect } from 'vitest';
 import { Rng } from '../../src/core/random.js';
 import type { ModelDescriptionInput } from '../../src/embed/model-description.js';
-import { DataType, OnnxModelBuilder, attr } from '../../src/embed/onnx-model-builder.js';
+import { DataType, OnnxGraphBuilder, attr } from '../../src/compute/onnx-builder.js';
 import { CairnError } from '../../src/errors.js';
 
 /** A scratch folder; remove it with cleanup(). */
@@ -34,7 +34,7 @@ export function tinyDescription(name: string, output: ModelDescriptionInput['out
 
 /** image [batch,1,8,8] → Flatten → 'vector' [batch,64]: the embedding is the preprocessed image itself. */
 export function flattenModel(batch: number | string = 'batch'): Uint8Array {
-  const g = new OnnxModelBuilder();
+  const g = new OnnxGraphBuilder();
   const x = g.input('image', DataType.FLOAT, [batch, 1, 8, 8]);
   g.op('Flatten', [x], [attr.i('axis', 1)], 'vector');
   g.output('vector', DataType.FLOAT, [batch, 64]);
@@ -43,7 +43,7 @@ export function flattenModel(batch: number | string = 'batch'): Uint8Array {
 
 /** image [batch,1,8,8] → ArgMax over the rows (axis 2) → 'label' int64 [batch,1,8]. */
 export function argMaxModel(): Uint8Array {
-  const g = new OnnxModelBuilder();
+  const g = new OnnxGraphBuilder();
   const x = g.input('image', DataType.FLOAT, ['batch', 1, 8, 8]);
   g.op('ArgMax', [x], [attr.i('axis', 2), attr.i('keepdims', 0)], 'label');
   g.output('label', DataType.INT64, ['batch', 1, 8]);
@@ -52,7 +52,7 @@ export function argMaxModel(): Uint8Array {
 
 /** 'vector' = image × NaN: non-finite for every input, so also on the registry's probe batch. */
 export function nanModel(): Uint8Array {
-  const g = new OnnxModelBuilder();
+  const g = new OnnxGraphBuilder();
   const x = g.input('image', DataType.FLOAT, ['batch', 1, 8, 8]);
   const flat = g.op('Flatten', [x], [attr.i('axis', 1)]);
   g.op('Mul', [flat, g.floats(Float32Array.of(NaN), [])], [], 'vector');
@@ -65,7 +65,7 @@ export function nanModel(): Uint8Array {
  * pixel above 200, e.g. a white thumbnail; so it passes validation and fails at job time.
  */
 export function sqrtModel(): Uint8Array {
-  const g = new OnnxModelBuilder();
+  const g = new OnnxGraphBuilder();
   const x = g.input('image', DataType.FLOAT, ['batch', 1, 8, 8]);
   const flat = g.op('Flatten', [x], [attr.i('axis', 1)]);
   g.op('Sqrt', [g.op('Sub', [g.floats(Float32Array.of(200), []), flat])], [], 'vector');
