@@ -2,7 +2,7 @@ import pino from 'pino';
 import { hashApiKey, newApiKey } from '../api/auth.js';
 import { startServer } from '../api/server.js';
 import { ConfigError, loadConfig, TENANT_NAME, type Config } from '../config.js';
-import { startBullWorker } from '../jobs/bullmq-worker.js';
+import { bullWorkerOptions, startBullWorker } from '../jobs/bullmq-worker.js';
 
 /** Reads the configuration once; a bad setting stops the process naming the variable and its range. */
 function configOrExit(): Config {
@@ -50,18 +50,8 @@ export async function runWorker(): Promise<void> {
     process.stderr.write('cairn worker needs REDIS_URL (without it, `cairn serve` runs jobs itself).\n');
     process.exit(2);
   }
-  const worker = await startBullWorker({
-    redisUrl: config.REDIS_URL,
-    prefix: config.CAIRN_QUEUE_PREFIX,
-    dataDir: config.CAIRN_DATA_DIR,
-    concurrency: config.CAIRN_WORKER_CONCURRENCY,
-    maxAttempts: config.CAIRN_JOB_ATTEMPTS,
-    computeThreads: config.CAIRN_COMPUTE_THREADS,
-    checkpointEveryMs: config.CAIRN_CHECKPOINT_SECONDS * 1000,
-    modelsDir: config.CAIRN_MODELS_DIR,
-    stalledMs: config.CAIRN_STALLED_SECONDS * 1000,
-    log,
-  });
+  const worker = await startBullWorker(bullWorkerOptions(config, log));
+
   log.info({ concurrency: config.CAIRN_WORKER_CONCURRENCY }, 'cairn worker started');
   onSignals(() => worker.close(config.CAIRN_SHUTDOWN_GRACE_SECONDS * 1000), log);
 }

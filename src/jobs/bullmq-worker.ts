@@ -1,11 +1,29 @@
 import { hostname } from 'node:os';
 import { Worker, type Job } from 'bullmq';
 import type { Logger } from 'pino';
+import type { Config } from '../config.js';
 import { QUEUE_NAMES, type ProgressMessage } from './bullmq-queue.js';
 import { entryFile } from './entry-file.js';
 import { errorOf } from './task-runner.js';
 import { TaskStore } from './task-store.js';
 import { isFinal, TASK_KINDS, type TaskRef, type TaskState } from './task.js';
+
+/** A worker's options from the one configuration (REDIS_URL must be set). */
+export function bullWorkerOptions(config: Config, log: Logger): BullWorkerOptions {
+  if (!config.REDIS_URL) throw new Error('a BullMQ worker needs REDIS_URL');
+  return {
+    redisUrl: config.REDIS_URL,
+    prefix: config.CAIRN_QUEUE_PREFIX,
+    dataDir: config.CAIRN_DATA_DIR,
+    concurrency: config.CAIRN_WORKER_CONCURRENCY,
+    maxAttempts: config.CAIRN_JOB_ATTEMPTS,
+    computeThreads: config.CAIRN_COMPUTE_THREADS,
+    checkpointEveryMs: config.CAIRN_CHECKPOINT_SECONDS * 1000,
+    modelsDir: config.CAIRN_MODELS_DIR,
+    stalledMs: config.CAIRN_STALLED_SECONDS * 1000,
+    log,
+  };
+}
 
 export interface BullWorkerOptions {
   redisUrl: string;
