@@ -1,6 +1,7 @@
-import { createHash, randomBytes } from 'node:crypto';
-import { mkdir, open, readdir, readFile, rename, rm, stat } from 'node:fs/promises';
+import { createHash } from 'node:crypto';
+import { mkdir, readdir, readFile, rm, stat } from 'node:fs/promises';
 import { join } from 'node:path';
+import { writeFileAtomic } from '../data/file-ops.js';
 import { CairnError } from '../errors.js';
 
 export interface StoredAnswer {
@@ -62,11 +63,7 @@ export class IdempotencyStore {
       const result = await answer();
       const record: IdempotencyRecord = { ...result, fingerprint, createdAt: new Date().toISOString() };
       await mkdir(join(this.dir, tenant), { recursive: true });
-      const tmp = `${path}.tmp-${randomBytes(6).toString('hex')}`;
-      const fh = await open(tmp, 'w');
-      await fh.writeFile(JSON.stringify(record));
-      await fh.close();
-      await rename(tmp, path);
+      await writeFileAtomic(path, JSON.stringify(record));
       return result;
     })();
     this.pending.set(path, work);

@@ -87,20 +87,15 @@ export interface Representative {
   labels: Record<string, number> | null;
 }
 
-/** A fixed item's place in the result: the coverage fields as for a representative. */
-export interface FixedRepresentative {
+/**
+ * A fixed item's place in the result: the coverage fields as for a representative (its weight is in
+ * ν too: weights sum to 1 over fixed items and representatives).
+ */
+export interface FixedRepresentative extends Omit<Representative, 'rank' | 'index'> {
   /** Index in SelectContext.fixed. */
   position: number;
   /** Its row in the input, or null when it is not one of the input's rows. */
   index: number | null;
-  /** Weight in ν (weights sum to 1 over fixed items and representatives). */
-  weight: number;
-  share: number;
-  count: number;
-  meanDistance: number;
-  p90Distance: number;
-  radius: number;
-  labels: Record<string, number> | null;
 }
 
 export type SelectPhase = 'prepare' | 'scale' | 'seed' | 'descent' | 'snap' | 'refine' | 'coverage' | 'baseline' | 'done';

@@ -142,7 +142,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
       k > kp ? await seedKMeansPlusPlus(rows, k - kp, backend, rng, undefined, { given: concat(prevPoints, fixedPoints), exclude: new Set([...given.fixedRows, ...prevRows]) }) : new Int32Array(0);
     points = concat(prevPoints, rows.gather(extra));
     // The earlier items themselves are a start for the swaps (deleted ones filled in after snapping).
-    seedRows = concat32i(prevRows, extra);
+    seedRows = concat(prevRows, extra);
   } else {
     seedRows = await seedKMeansPlusPlus(rows, k, backend, rng, undefined, f > 0 ? { given: fixedPoints, exclude: given.fixedRows } : {});
     points = rows.gather(seedRows);
@@ -255,7 +255,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   const rowSlots = poolRows.length;
   // Fixed items are the last f pool entries: in every set, frozen, never a candidate for a swap.
   const fixedSlots = Int32Array.from({ length: f }, (_, i) => rowSlots + i);
-  const poolC = f > 0 ? concat64(Float64Array.from(poolCValues), await dataTermMeans(constant.reference, backend, kernel, fixedPoints, f)) : Float64Array.from(poolCValues);
+  const poolC = f > 0 ? concat(Float64Array.from(poolCValues), await dataTermMeans(constant.reference, backend, kernel, fixedPoints, f)) : Float64Array.from(poolCValues);
   const slotOf = new Map(poolRows.map((r, i) => [r, i]));
   const columns = new KernelColumns(backend, kernel, withFixed(rows.gather(poolRows)), rowSlots + f, d);
   let bonus: Float64Array | undefined;
@@ -270,7 +270,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
     refineBySwaps(columns, kernel, {
       poolSize: rowSlots + f,
       c: poolC,
-      slots: f > 0 ? concat32i(slots, fixedSlots) : slots,
+      slots: f > 0 ? concat(slots, fixedSlots) : slots,
       weights,
       frozen: frozenSlots,
       bonus,
@@ -344,7 +344,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
     const pts = rows.gather(idx);
     const cr = await dataTermMeans(scoring, backend, kernel, pts, k);
     const { K: Kr } = await selfTerm(backend, kernel, withFixed(pts), uniform, total, d, false);
-    draws.push(prefixCurve(fixedScoringC ? concat64(cr, fixedScoringC) : cr, Kr, constant.value, fixedIdx));
+    draws.push(prefixCurve(fixedScoringC ? concat(cr, fixedScoringC) : cr, Kr, constant.value, fixedIdx));
   }
   const randomFinal = draws.map((curve) => curve[k - 1]);
   const randomMedian = median(randomFinal);
@@ -486,22 +486,9 @@ function fillDeleted(start: Int32Array, cand: CandidateLists, fixedRows: Readonl
   return out;
 }
 
-function concat(a: Float32Array, b: Float32Array): Float32Array {
-  const out = new Float32Array(a.length + b.length);
-  out.set(a);
-  out.set(b, a.length);
-  return out;
-}
-
-function concat64(a: Float64Array, b: Float64Array): Float64Array {
-  const out = new Float64Array(a.length + b.length);
-  out.set(a);
-  out.set(b, a.length);
-  return out;
-}
-
-function concat32i(a: Int32Array, b: Int32Array): Int32Array {
-  const out = new Int32Array(a.length + b.length);
+/** a then b, in a new array of their type. */
+function concat<T extends Float32Array | Float64Array | Int32Array>(a: T, b: T): T {
+  const out = new (a.constructor as new (length: number) => T)(a.length + b.length);
   out.set(a);
   out.set(b, a.length);
   return out;

@@ -1,9 +1,10 @@
 import { createHash, randomBytes } from 'node:crypto';
 import { createReadStream } from 'node:fs';
-import { access, mkdir, mkdtemp, open, readdir, rename, rm, rmdir, unlink } from 'node:fs/promises';
+import { mkdir, mkdtemp, open, readdir, rename, rm, rmdir, unlink } from 'node:fs/promises';
 import { basename, join } from 'node:path';
 import { CairnError, requireArg } from '../errors.js';
 import { DatasetWriter } from './dataset-writer.js';
+import { pathExists } from './file-ops.js';
 import { detectFormat } from './format-sniffer.js';
 import type { DatasetFormat, ReadOptions } from './reader.js';
 import { checkFileSize, streamChunkBytes } from './reader-limits.js';
@@ -46,7 +47,7 @@ export async function ingestFile(path: string, request: IngestRequest): Promise<
   requireArg(request.format === undefined || isDatasetFormat(request.format), 'format', 'a known dataset format', request.format);
   await mkdir(storeDir, { recursive: true });
   const finalDir = join(storeDir, datasetId);
-  if (await exists(finalDir)) throw new CairnError('DATASET_ALREADY_EXISTS', undefined, { datasetId });
+  if (await pathExists(finalDir)) throw new CairnError('DATASET_ALREADY_EXISTS', undefined, { datasetId });
 
   const sourceBytes = await checkFileSize(path, options.limits);
   const sourceName = request.sourceName ?? basename(path);
@@ -144,15 +145,6 @@ async function sha256File(path: string, size: number, signal: AbortSignal): Prom
   const hash = createHash('sha256');
   for await (const chunk of createReadStream(path, { highWaterMark: streamChunkBytes(size), signal })) hash.update(chunk as Buffer);
   return hash.digest('hex');
-}
-
-async function exists(path: string): Promise<boolean> {
-  try {
-    await access(path);
-    return true;
-  } catch {
-    return false;
-  }
 }
 
 async function writeMeta(path: string, text: string, durable: boolean): Promise<void> {

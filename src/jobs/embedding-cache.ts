@@ -1,6 +1,7 @@
-import { createHash, randomBytes } from 'node:crypto';
-import { mkdir, open, readFile, rename, rm, stat, writeFile } from 'node:fs/promises';
+import { createHash } from 'node:crypto';
+import { mkdir, open, readFile, rename, rm, stat } from 'node:fs/promises';
 import { join } from 'node:path';
+import { pathExists, tempNameFor, writeFileAtomic } from '../data/file-ops.js';
 import type { ModelDescription } from '../embed/model-description.js';
 
 /**
@@ -44,17 +45,17 @@ export class EmbeddingCache {
   }
 
   async hasShard(start: number, count: number): Promise<boolean> {
-    return exists(this.shardPath(start, count));
+    return pathExists(this.shardPath(start, count));
   }
 
   async writeShard(start: number, count: number, vectors: Float32Array): Promise<void> {
     await mkdir(join(this.dir, 'shards'), { recursive: true });
-    await writeAtomic(this.shardPath(start, count), new Uint8Array(vectors.buffer, vectors.byteOffset, vectors.byteLength));
+    await writeFileAtomic(this.shardPath(start, count), new Uint8Array(vectors.buffer, vectors.byteOffset, vectors.byteLength));
   }
 
   /** Joins the shards (in row order) into matrix.f32, records meta.json, then drops the shards. */
   async assemble(shards: Array<{ start: number; count: number }>, meta: EmbeddingMeta): Promise<void> {
-    const tmp = `${this.matrixPath}.tmp-${randomBytes(6).toString('hex')}`;
+    const tmp = tempNameFor(this.matrixPath);
     const out = await open(tmp, 'w');
     try {
       // A shard is at most CAIRN_EMBED_SHARD_ROWS vectors: read whole, appended in row order.
@@ -68,7 +69,7 @@ export class EmbeddingCache {
       await rm(tmp, { force: true });
       throw err;
     }
-    await writeAtomic(join(this.dir, 'meta.json'), JSON.stringify(meta, null, 2) + '\n');
+    await writeFileAtomic(join(this.dir, 'meta.json'), JSON.stringify(meta, null, 2) + '\n');
     await rm(join(this.dir, 'shards'), { recursive: true, force: true });
   }
 
@@ -88,19 +89,4 @@ export class EmbeddingCache {
     }
     return out;
   }
-}
-
-async function exists(path: string): Promise<boolean> {
-  try {
-    await stat(path);
-    return true;
-  } catch {
-    return false;
-  }
-}
-
-async function writeAtomic(path: string, data: string | Uint8Array): Promise<void> {
-  const tmp = `${path}.tmp-${randomBytes(6).toString('hex')}`;
-  await writeFile(tmp, data);
-  await rename(tmp, path);
 }

@@ -1,6 +1,7 @@
 import { randomBytes } from 'node:crypto';
-import { mkdir, open, readdir, readFile, rename, rm, stat, unlink, writeFile } from 'node:fs/promises';
+import { mkdir, readdir, readFile, rename, rm, stat, unlink, writeFile } from 'node:fs/promises';
 import { join } from 'node:path';
+import { pathExists, tempNameFor, writeFileAtomic } from '../data/file-ops.js';
 import { CairnError } from '../errors.js';
 import { TASK_KINDS, type TaskKind, type TaskRef, type TaskSpec, type TaskState } from './task.js';
 
@@ -48,7 +49,7 @@ export class TaskStore {
   async create(ref: TaskRef, spec: TaskSpec, files: { source?: string } = {}): Promise<TaskState> {
     const dir = this.dir(ref);
     await mkdir(join(this.dataDir, 'tenants', ref.tenant, ref.kind), { recursive: true });
-    const tmp = `${dir}.tmp-${randomBytes(6).toString('hex')}`;
+    const tmp = tempNameFor(dir);
     await mkdir(tmp);
     try {
       const now = new Date().toISOString();
@@ -65,12 +66,7 @@ export class TaskStore {
   }
 
   async exists(ref: TaskRef): Promise<boolean> {
-    try {
-      await stat(join(this.dir(ref), 'spec.json'));
-      return true;
-    } catch {
-      return false;
-    }
+    return pathExists(join(this.dir(ref), 'spec.json'));
   }
 
   async readSpec<S extends TaskSpec = TaskSpec>(ref: TaskRef): Promise<S> {
@@ -87,15 +83,7 @@ export class TaskStore {
 
   /** Writes a file of the task folder under a temporary name, then renames it into place. */
   async writeAtomic(ref: TaskRef, name: TaskFile, data: string | Uint8Array): Promise<void> {
-    const path = this.file(ref, name);
-    const tmp = `${path}.tmp-${randomBytes(6).toString('hex')}`;
-    const fh = await open(tmp, 'w');
-    try {
-      await fh.writeFile(data);
-    } finally {
-      await fh.close();
-    }
-    await rename(tmp, path);
+    await writeFileAtomic(this.file(ref, name), data);
   }
 
   async readText(ref: TaskRef, name: TaskFile): Promise<string> {
@@ -125,12 +113,7 @@ export class TaskStore {
   }
 
   async cancelRequested(ref: TaskRef): Promise<boolean> {
-    try {
-      await stat(this.file(ref, 'cancel'));
-      return true;
-    } catch {
-      return false;
-    }
+    return pathExists(this.file(ref, 'cancel'));
   }
 
   /** Ids of a tenant's tasks of one kind (complete folders only). */
