@@ -6,15 +6,14 @@
 // count for both. Their picks are then scored here with the same code (cairn's D² functions on the
 // raw pixels), never with a tool's own report, so neither can flatter itself.
 import { spawnSync } from 'node:child_process';
-import { rmSync } from 'node:fs';
-import { cp, mkdtemp, readFile, symlink, writeFile } from 'node:fs/promises';
+import { readFile } from 'node:fs/promises';
 import { createRequire } from 'node:module';
 import os from 'node:os';
 import { dirname, join, resolve } from 'node:path';
-import { fileURLToPath, pathToFileURL } from 'node:url';
+import { fileURLToPath } from 'node:url';
 import { measureProcess, hasGnuTime } from './lib/measure.mjs';
 import { writeNpyFloat32 } from './lib/npy.mjs';
-import { buildDist, uptime } from './lib/machine.mjs';
+import { buildDist, snapshotDist, uptime } from './lib/machine.mjs';
 
 const ROOT = resolve(dirname(fileURLToPath(import.meta.url)), '..', '..');
 const PEER = join(ROOT, 'scripts', 'bench', 'mnist-peer.py');
@@ -38,18 +37,8 @@ const REPEATS = Math.max(1, option('--repeats', 1));
 // --- build (see lib/machine.mjs) ----------------------------------------------------------------
 if (!flag('--no-build')) buildDist(ROOT);
 
-// A private copy of dist/: others may rebuild dist/ while this bench runs (it happened), and a
-// child started minutes later must be the same cairn that the first one was and that scores them.
-// node_modules is linked, not copied; package.json only marks the .js files as ES modules.
-const work = await mkdtemp(join(os.tmpdir(), 'cairn-bench-mnist-'));
-// Removed on every exit, failures included: it holds a 30 MiB .npy and a copy of dist/.
-process.on('exit', () => rmSync(work, { recursive: true, force: true }));
-const SNAP = join(work, 'cairn');
-await cp(join(ROOT, 'dist'), join(SNAP, 'dist'), { recursive: true });
-await writeFile(join(SNAP, 'package.json'), '{"type": "module"}\n');
-await symlink(join(ROOT, 'node_modules'), join(SNAP, 'node_modules'), 'dir');
-const CLI = join(SNAP, 'dist', 'cli', 'main.js');
-const dist = (p) => import(pathToFileURL(join(SNAP, 'dist', p)).href);
+// A private copy of dist/ (see snapshotDist); `work` also holds the 30 MiB .npy, removed on every exit.
+const { work, cli: CLI, dist } = await snapshotDist(ROOT, 'mnist');
 const { DenseRows } = await dist('core/rows.js');
 const { constantTerm, dataTermMeans, discrepancyFromTerms } = await dist('core/discrepancy.js');
 const { selfTerm } = await dist('core/descent.js');

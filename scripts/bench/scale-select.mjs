@@ -7,13 +7,13 @@
 // from dist/ (ONNX backend), against a common seeded random sample of the rows, with the energy
 // kernel at cairn's own scale (kernel.a from cairn's result JSON).
 import { rmSync } from 'node:fs';
-import { cp, mkdtemp, readFile, symlink, writeFile } from 'node:fs/promises';
+import { readFile } from 'node:fs/promises';
 import os from 'node:os';
 import { dirname, join, resolve } from 'node:path';
-import { fileURLToPath, pathToFileURL } from 'node:url';
+import { fileURLToPath } from 'node:url';
 import { measureProcess, hasGnuTime } from './lib/measure.mjs';
 import { writeNpyFloat32 } from './lib/npy.mjs';
-import { buildDist, loadavg, uptime } from './lib/machine.mjs';
+import { buildDist, loadavg, snapshotDist, uptime } from './lib/machine.mjs';
 
 const ROOT = resolve(dirname(fileURLToPath(import.meta.url)), '..', '..');
 const PEER = join(ROOT, 'scripts', 'bench', 'scale-peer.py');
@@ -38,15 +38,8 @@ const SAMPLE = Math.min(option('--sample', 20_000), N);
 if (!flag('--no-build')) buildDist(ROOT);
 
 // Private snapshot of dist/ so a concurrent rebuild cannot change cairn mid-bench.
-const work = await mkdtemp(join(os.tmpdir(), 'cairn-bench-scale-'));
-process.on('exit', () => rmSync(work, { recursive: true, force: true }));
+const { work, cli: CLI, dist } = await snapshotDist(ROOT, 'scale');
 for (const sig of ['SIGINT', 'SIGTERM']) process.on(sig, () => process.exit(130));
-const SNAP = join(work, 'cairn');
-await cp(join(ROOT, 'dist'), join(SNAP, 'dist'), { recursive: true });
-await writeFile(join(SNAP, 'package.json'), '{"type": "module"}\n');
-await symlink(join(ROOT, 'node_modules'), join(SNAP, 'node_modules'), 'dir');
-const CLI = join(SNAP, 'dist', 'cli', 'main.js');
-const dist = (p) => import(pathToFileURL(join(SNAP, 'dist', p)).href);
 const { DenseRows } = await dist('core/rows.js');
 const { constantTerm, dataTermMeans, discrepancyFromTerms } = await dist('core/discrepancy.js');
 const { selfTerm } = await dist('core/descent.js');

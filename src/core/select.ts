@@ -351,36 +351,19 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   const { order, curve } = greedyPrefixOrder(c, K, constant.value, fixedIdx);
   endPhase('baseline');
 
-  const representatives = order.map((j, rank) => {
+  /** Weight and coverage figures of point j (a new representative or a fixed item). */
+  const coverageOf = (j: number) => {
     const rc = cov.perRepresentative[j];
-    return {
-      rank: rank + 1,
-      index: chosen[j],
-      weight: weights[j],
-      share: rc.share,
-      count: rc.count,
-      meanDistance: rc.meanDistance,
-      p90Distance: rc.p90Distance,
-      radius: rc.maxDistance,
-      labels: rc.labels,
-    };
+    return { weight: weights[j], share: rc.share, count: rc.count, meanDistance: rc.meanDistance, p90Distance: rc.p90Distance, radius: rc.maxDistance, labels: rc.labels };
+  };
+  const representatives = order.map((j, rank) => {
+    return { rank: rank + 1, index: chosen[j], ...coverageOf(j) };
   });
   const fixedResult: FixedRepresentative[] | null =
     f > 0
       ? fixedIdx.map((j, position) => {
-          const rc = cov.perRepresentative[j];
           const row = given.fixed.rows[position];
-          return {
-            position,
-            index: row >= 0 ? row : null,
-            weight: weights[j],
-            share: rc.share,
-            count: rc.count,
-            meanDistance: rc.meanDistance,
-            p90Distance: rc.p90Distance,
-            radius: rc.maxDistance,
-            labels: rc.labels,
-          };
+          return { position, index: row >= 0 ? row : null, ...coverageOf(j) };
         })
       : null;
   // Rank 1..k of each new item; a fixed item i is −(i + 1) in the assignments, 0 as nearestRank.

@@ -1,8 +1,10 @@
 // What every benchmark prints about the machine, and the build it runs on.
 import { spawnSync } from 'node:child_process';
-import { existsSync } from 'node:fs';
+import { existsSync, rmSync } from 'node:fs';
+import { cp, mkdtemp, symlink, writeFile } from 'node:fs/promises';
 import os from 'node:os';
 import { join } from 'node:path';
+import { pathToFileURL } from 'node:url';
 
 export const loadavg = () => os.loadavg().map((v) => v.toFixed(2)).join(' ');
 
@@ -29,4 +31,24 @@ export function buildDist(root) {
   } else {
     console.log(`build: npm run build ok (${((Date.now() - t) / 1000).toFixed(1)} s)`);
   }
+}
+
+/**
+ * A private copy of `root`'s dist/ in a temp folder removed on exit: others may rebuild dist/ while
+ * a benchmark runs, and a child started minutes later must be the same cairn that the first one was
+ * and that scores them. node_modules is linked, not copied; package.json only marks the .js files
+ * as ES modules. Returns the folder, the CLI path and an importer of dist/ modules.
+ */
+export async function snapshotDist(root, name) {
+  const work = await mkdtemp(join(os.tmpdir(), `cairn-bench-${name}-`));
+  process.on('exit', () => rmSync(work, { recursive: true, force: true }));
+  const snap = join(work, 'cairn');
+  await cp(join(root, 'dist'), join(snap, 'dist'), { recursive: true });
+  await writeFile(join(snap, 'package.json'), '{"type": "module"}\n');
+  await symlink(join(root, 'node_modules'), join(snap, 'node_modules'), 'dir');
+  return {
+    work,
+    cli: join(snap, 'dist', 'cli', 'main.js'),
+    dist: (p) => import(pathToFileURL(join(snap, 'dist', p)).href),
+  };
 }
