@@ -90,17 +90,6 @@ export class TaskReader {
     if (ref.kind === 'dataset') this.metas.delete(`${ref.tenant}:${ref.id}`);
     for (const k of this.summaries.keys()) if (k.startsWith(`${key}/`)) this.summaries.delete(k);
   }
-
-  /** Whether the task exists (its spec can be read). */
-  async exists(ref: TaskRef): Promise<boolean> {
-    try {
-      await this.readSpec(ref);
-      await this.readState(ref);
-      return true;
-    } catch {
-      return false;
-    }
-  }
 }
 
 /** Map insertion with a crude bound: the oldest entry goes first. */

@@ -124,13 +124,7 @@ export function isFinal(status: TaskStatus): boolean {
   return FINAL_STATUSES.includes(status);
 }
 
-/** Queue job names: `<kind>:<tenant>:<id>` (ids and tenants contain no ':'). */
+/** A task's key in maps and queue job names: `<kind>:<tenant>:<id>` (kinds and tenants contain no ':'). */
 export function taskKey(ref: TaskRef): string {
   return `${ref.kind}:${ref.tenant}:${ref.id}`;
-}
-
-export function parseTaskKey(key: string): TaskRef {
-  const [kind, tenant, id] = key.split(':');
-  if (!TASK_KINDS.includes(kind as TaskKind) || !tenant || !id) throw new Error(`bad task key ${key}`);
-  return { kind: kind as TaskKind, tenant, id };
 }
