@@ -28,7 +28,8 @@ export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
   const dataset = openDataset(store.storeDir(ref.tenant), spec.datasetId);
   const { meta } = dataset;
   const items = await dataset.readItems();
-  let rows: DenseRows;
+  /** The job's rows in its source space, read from disk (again for a second run: select() transforms them in place). */
+  let loadRows: () => Promise<DenseRows>;
   let embedding: ResultDocument['embedding'];
   if (spec.embedding) {
     // The embedding first (from the cache, the job's shard tasks, or computed here), then the
@@ -37,19 +38,18 @@ export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
     const cache = new EmbeddingCache(join(store.embeddingsDir(ref.tenant, spec.datasetId), spec.embedding.cacheKey));
     const thumbs = join(dataset.dir, 'thumbs');
     const { meta: em, computedRows } = await ensureEmbedding(ctx, cache, thumbs, spec.embedding, meta.rows, (f) => ctx.onProgress({ phase: 'embed', fraction: 0.3 * f }));
-    rows = new DenseRows(await cache.load(em), em.rows, em.dim);
+    loadRows = async () => new DenseRows(await cache.load(em), em.rows, em.dim);
     embedding = { model: em.model, modelSha256: em.modelSha256, normalize: em.normalize, dims: em.dim, computedRowsInThisTask: computedRows, seconds: (performance.now() - started) / 1000 };
   } else {
-    rows = new DenseRows(dataset.loadMatrix(), meta.rows, meta.cols);
+    loadRows = async () => new DenseRows(dataset.loadMatrix(), meta.rows, meta.cols);
   }
+  const rows = await loadRows();
   const labels = meta.hasLabels ? labelCodes(items.labels) : null;
 
   // Items the job names, gathered before the selection transforms the rows in place.
   const given: GivenSource = { ctx, datasetId: spec.datasetId, rows, ids: items.ids, model: spec.embedding ? await modelForJob(ctx.modelsDir, spec.embedding) : null };
   const fixed = spec.fixed ? await resolveFixed(given, spec.fixed) : null;
   const previous = spec.previous ? await resolvePrevious(given, spec.previous) : null;
-  // An unconstrained run to compare a stable re-selection with needs the untouched rows too.
-  const plainRows = previous ? new DenseRows(Float32Array.from(rows.read(0, rows.rows)), rows.rows, rows.cols) : null;
   const f = fixed?.ids.length ?? 0;
 
   const saved = await store.readOptional(ref, 'checkpoint.json');
@@ -81,9 +81,11 @@ export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
     if (!assignments) throw new Error('the selection reported no assignments');
     await store.writeAtomic(ref, 'assignments.bin', assignments);
     let stabilityCost: ResultDocument['stabilityCost'];
-    if (previous && plainRows) {
+    if (previous) {
       // What stability costs: the same selection without the earlier set (same seed, same fixed items).
-      const plain = await select(plainRows, spec.options, { backend, signal: ctx.signal, sourceIsScratch: true, fixed: fixed?.items });
+      // The first run transformed `rows` in place, so the comparison reads them again rather than
+      // keeping a second copy in memory during the first run.
+      const plain = await select(await loadRows(), spec.options, { backend, signal: ctx.signal, sourceIsScratch: true, fixed: fixed?.items });
       const value = result.discrepancy.value;
       stabilityCost = { previousJobId: previous.jobId, droppedPrevious: previous.dropped, unconstrainedD2: plain.discrepancy.value, ratio: plain.discrepancy.value > 0 ? value / plain.discrepancy.value : null };
     }
