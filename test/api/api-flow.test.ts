@@ -151,9 +151,14 @@ describe.each(modes)('API end to end ($name)', (mode) => {
   });
 
   it('reports queue depth, task durations and upload bytes at /metrics', async () => {
-    const res = await request(url).get('/metrics');
+    // Queue depth is read at scrape time (from Redis in BullMQ mode). A task's thread or job ends
+    // a moment after it records its final state, so the last job may count as active briefly.
+    let res = await request(url).get('/metrics');
+    for (let i = 0; i < 50 && !/^cairn_queue_tasks\{state="active"\} 0$/m.test(res.text); i++) {
+      await new Promise((r) => setTimeout(r, 100));
+      res = await request(url).get('/metrics');
+    }
     expect(res.status).toBe(200);
-    // Queue depth is read at scrape time (from Redis in BullMQ mode).
     expect(res.text).toMatch(/^cairn_queue_tasks\{state="waiting"\} 0$/m);
     expect(res.text).toMatch(/^cairn_queue_tasks\{state="active"\} 0$/m);
     expect(res.text).toMatch(/^cairn_task_duration_seconds_count\{kind="job",status="completed"\} [1-9]/m);
