@@ -1,4 +1,5 @@
 import { z } from 'zod';
+import { totalmem } from 'node:os';
 
 /**
  * The one configuration of `cairn serve` and `cairn worker`, read from environment variables and
@@ -22,6 +23,11 @@ export const configSchema = z.object({
   CAIRN_MAX_UPLOAD_BYTES: int(1, 2 ** 45).default(8 * 1024 ** 3).describe('Largest dataset upload, in bytes. Default 8 GiB.'),
   CAIRN_RATE_LIMIT_PER_MINUTE: int(0, 1e7).default(1200).describe('Requests per minute per API key (per address when auth is off); 0 turns the limit off. Default 1200.'),
   CAIRN_WORKER_CONCURRENCY: int(1, 64).default(1).describe('Jobs one worker (or the embedded queue) runs at once. Default 1.'),
+  CAIRN_MEMORY_BUDGET_MB: int(0, 2 ** 30)
+    .default(0)
+    .describe(
+      'Memory each running selection may use for copies of its dataset, in MiB. A dataset larger than this is read from its file in blocks (slower, same method); smaller ones are held in memory. 0 (default): half of the physical memory divided by CAIRN_WORKER_CONCURRENCY.',
+    ),
   CAIRN_COMPUTE_THREADS: int(0, 256).default(0).describe('Threads of each job’s compute kernels; 0 (default) uses every core (the embedded queue leaves one for the API when there are two or more).'),
   CAIRN_JOB_ATTEMPTS: int(1, 20).default(3).describe('Attempts of a job that fails for a transient reason (bad data fails at once). Default 3.'),
   CAIRN_CHECKPOINT_SECONDS: num(0.1, 3600).default(10).describe('How often a running selection saves its state, so another worker can resume it. Default 10.'),
@@ -86,4 +92,10 @@ export function parseApiKeys(text: string): ApiKeyEntry[] {
     entries.push({ tenant, hash });
   }
   return entries;
+}
+
+/** CAIRN_MEMORY_BUDGET_MB in bytes, with 0 resolved to its automatic value. */
+export function memoryBudgetBytes(config: Pick<Config, 'CAIRN_MEMORY_BUDGET_MB' | 'CAIRN_WORKER_CONCURRENCY'>): number {
+  const mb = config.CAIRN_MEMORY_BUDGET_MB;
+  return mb > 0 ? mb * 1024 ** 2 : Math.floor(totalmem() / 2 / config.CAIRN_WORKER_CONCURRENCY);
 }

@@ -152,6 +152,8 @@ const BACKENDS: Array<[string, () => Promise<ComputeBackend>]> = [
   ['onnx (minWork 0)', () => OnnxBackend.create({ minWork: 0 })],
   // Tiny blocks: every case runs split over rows (points for nearestRows), summed in float64.
   ['onnx (minWork 0, blockElems 500)', () => OnnxBackend.create({ minWork: 0, blockElems: 500 })],
+  // As a selection over rows read from a file runs it (tight memory budget).
+  ['onnx (minWork 0, no memory arena)', () => OnnxBackend.create({ minWork: 0, memoryArena: false })],
 ];
 
 describe('compute backend conformance', () => {

@@ -2,7 +2,7 @@ import { readFileSync } from 'node:fs';
 import { availableParallelism } from 'node:os';
 import { join } from 'node:path';
 import pino, { type Logger } from 'pino';
-import { parseApiKeys, type Config } from '../config.js';
+import { memoryBudgetBytes, parseApiKeys, type Config } from '../config.js';
 import { EmbeddedQueue } from '../jobs/embedded-queue.js';
 import type { JobQueue } from '../jobs/queue.js';
 import { TaskStore } from '../jobs/task-store.js';
@@ -82,6 +82,7 @@ export async function startServer(config: Config, log: Logger = pino({ level: co
       maxAttempts: config.CAIRN_JOB_ATTEMPTS,
       computeThreads: threads,
       checkpointEveryMs: config.CAIRN_CHECKPOINT_SECONDS * 1000,
+      memoryBudgetBytes: memoryBudgetBytes(config),
       modelsDir: config.CAIRN_MODELS_DIR,
       log,
     });

@@ -45,6 +45,11 @@ export function buildProgram(): Command {
     .addOption(new Option('--non-finite <policy>', 'rows with NaN/Infinity: fail (default) or drop and count').choices(['fail', 'drop']))
     .option('--image-size <px>', `image archives: side of the square images are resized to; default ${DEFAULT_IMAGE_OPTIONS.size}`, integer)
     .addOption(new Option('--image-color <mode>', `image archives: gray or rgb; default ${DEFAULT_IMAGE_OPTIONS.color}`).choices(['gray', 'rgb']))
+    .option(
+      '--memory-budget <MiB>',
+      'memory for copies of the dataset; a larger dataset is read from its (temporary) file in blocks instead of held in memory. Default: half of the physical memory',
+      integer,
+    )
     .addOption(new Option('--backend <kind>', 'compute backend').choices(['onnx', 'reference']).default('onnx'))
     .option('--quiet', 'no progress bar on stderr')
     .action(async (file: string, flags: Record<string, unknown>) => {
@@ -53,6 +58,7 @@ export function buildProgram(): Command {
         format: flags.format as never,
         backend: flags.backend as 'onnx' | 'reference',
         out: flags.out as string | undefined,
+        memoryBudgetBytes: flags.memoryBudget === undefined ? undefined : (flags.memoryBudget as number) * 1024 ** 2,
         progress: !flags.quiet,
         read: {
           idField: flags.idField as string | undefined,

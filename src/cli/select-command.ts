@@ -1,11 +1,13 @@
 import { mkdtemp, rm, writeFile } from 'node:fs/promises';
-import { tmpdir } from 'node:os';
+import { tmpdir, totalmem } from 'node:os';
 import { basename, join } from 'node:path';
+import type { ComputeBackend } from '../compute/backend.js';
 import { createBackend, type BackendKind } from '../compute/create-backend.js';
+import type { DenseRows } from '../core/rows.js';
 import type { SelectOptionsInput } from '../core/options.js';
-import { DenseRows } from '../core/rows.js';
 import { select } from '../core/select.js';
 import { ingestFile, openDataset } from '../data/dataset-store.js';
+import { closeRows, type FileRows } from '../data/file-rows.js';
 import { labelCodes } from '../data/label-codes.js';
 import { defaultReadOptions, type ReadOptionOverrides } from '../data/read-options.js';
 import type { DatasetFormat } from '../data/reader.js';
@@ -20,6 +22,8 @@ export interface SelectCommandInput {
   backend: BackendKind;
   out?: string;
   progress: boolean;
+  /** See SelectContext.memoryBudgetBytes. Default: half of the physical memory. */
+  memoryBudgetBytes?: number;
 }
 
 /** The CLI's result: the engine's result plus the item ids and where the data came from. */
@@ -32,7 +36,8 @@ export type CliResult = ResultDocument;
  */
 export async function runSelectCommand(input: SelectCommandInput): Promise<CliResult> {
   const storeDir = await mkdtemp(join(tmpdir(), 'cairn-select-'));
-  const backend = await createBackend(input.backend);
+  let rows: DenseRows | FileRows | null = null;
+  let backend: ComputeBackend | null = null;
   try {
     const meta = await ingestFile(input.file, {
       storeDir,
@@ -41,11 +46,14 @@ export async function runSelectCommand(input: SelectCommandInput): Promise<CliRe
       options: defaultReadOptions(input.read),
     });
     const dataset = openDataset(storeDir, 'input');
-    const rows = new DenseRows(dataset.loadMatrix(), meta.rows, meta.cols);
+    const budget = input.memoryBudgetBytes ?? Math.floor(totalmem() / 2);
     const items = await dataset.readItems();
     const labels = meta.hasLabels ? labelCodes(items.labels) : null;
     const bar = new ProgressBar(process.stderr, input.progress);
-    const result = await select(rows, input.options, { backend, labels, sourceIsScratch: true, onProgress: (p) => bar.update(p) });
+    rows = dataset.rowSource(budget);
+    // Rows read from their file mean memory is tight: no ORT arenas holding each graph's peak buffers.
+    backend = await createBackend(input.backend, { memoryArena: rows.resident });
+    const result = await select(rows, input.options, { backend, labels, sourceIsScratch: true, memoryBudgetBytes: budget, onProgress: (p) => bar.update(p) });
     const out: CliResult = resultDocument(result, items, meta, { source: basename(input.file) });
     const text = JSON.stringify(out, null, 2) + '\n';
     if (input.out) {
@@ -56,7 +64,8 @@ export async function runSelectCommand(input: SelectCommandInput): Promise<CliRe
     }
     return out;
   } finally {
-    await backend.dispose();
+    if (rows) closeRows(rows);
+    await backend?.dispose();
     await rm(storeDir, { recursive: true, force: true });
   }
 }

@@ -90,6 +90,11 @@ export interface DescentContext {
   checkpointEveryMs?: number;
   /** Trace entries of an earlier attempt this descent continues (from a checkpoint). */
   initialTrace?: Array<[number, number]>;
+  /**
+   * Bytes the descent may hold in a copy of the rows (the shuffled prepared copy, or the prepared
+   * full batch). Without room for it, minibatches are gathered anew each iteration. Default: no limit.
+   */
+  maxCopyBytes?: number;
 }
 
 /**
@@ -147,6 +152,28 @@ export function initialDescentState(points: Float32Array, k: number, kind: Optim
 const SHUFFLED_COPY_MAX_VALUES = 2 ** 28;
 
 /**
+ * A minibatch of rows read from a file is made of blocks of consecutive rows of about this many
+ * bytes (one page; at least one row), one read each: B scattered single-row reads cost more.
+ */
+const FILE_BLOCK_BYTES = 4096;
+
+/**
+ * Rows of B/b random blocks of b consecutive rows (b = rows per FILE_BLOCK_BYTES), blocks on a
+ * grid and drawn without replacement: every row is in the batch with the same probability, so the
+ * gradient stays unbiased; rows of one block are correlated when the file is ordered (e.g. by
+ * label), which adds variance, not bias. Returns the row indices (fewer than B when the last,
+ * shorter block is drawn).
+ */
+export function blockMinibatch(n: number, d: number, B: number, rng: Rng): Int32Array {
+  const b = Math.max(1, Math.floor(FILE_BLOCK_BYTES / (4 * d)));
+  const blocks = Math.ceil(n / b);
+  const picked = rng.sample(blocks, Math.min(blocks, Math.max(1, Math.round(B / b))));
+  const out: number[] = [];
+  for (const block of picked) for (let r = block * b; r < Math.min(n, block * b + b); r++) out.push(r);
+  return Int32Array.from(out);
+}
+
+/**
  * Minibatch stochastic descent on D²(μ, ν) over the k points. The data term's gradient
  * 2wⱼ E_y g(|pⱼ − y|²)(pⱼ − y) is estimated without bias from a minibatch of B rows; the self
  * term −Σ wᵢwⱼ h(|pᵢ − pⱼ|) is exact (k×k). The state can be saved and resumed at any iteration.
@@ -172,6 +199,8 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
   let batchBuffer: Float32Array | undefined;
   let shuffled: Float32Array | undefined;
   let anchorGrad: Float64Array | undefined;
+  // The shuffled copy (or the full batch) in prepared form: n × (d + 2) float32.
+  const copyFits = n * (d + 2) * 4 <= (ctx.maxCopyBytes ?? Infinity);
 
   while (state.iteration < o.maxIterations) {
     const elapsed = now() - started;
@@ -181,19 +210,27 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
       break;
     }
     let stats: DataTermStats;
-    if (B === n) {
+    // Rows in this step's minibatch (B, or the rows of the blocks drawn from a file).
+    let batchRows = B;
+    if (B === n && copyFits) {
       fullBatch ??= prepareRows(rows.read(0, n), n, d);
       stats = await backend.dataTermPrepared(fullBatch, B, state.points, k, d, kernel);
-    } else if (n * d <= SHUFFLED_COPY_MAX_VALUES) {
+    } else if (n * d <= SHUFFLED_COPY_MAX_VALUES && copyFits) {
       // A window at a random offset of one random permutation of the rows is a uniformly random
       // B-subset, read without copying; gathering B scattered rows each step cost more than the
       // kernel. The copy is kept in prepared form [x, |x|², 1], built once instead of per call.
       shuffled ??= prepareRows(rows.gather(Rng.fromState(state.shuffleState).shuffle(range(0, n))), n, d);
       const offset = rng.int(n - B + 1);
       stats = await backend.dataTermPrepared(shuffled.subarray(offset * (d + 2), (offset + B) * (d + 2)), B, state.points, k, d, kernel);
-    } else {
+    } else if (rows.resident) {
       const batch = rows.gather(rng.sample(n, B), (batchBuffer ??= new Float32Array(B * d)));
       stats = await backend.dataTerm(batch, B, state.points, k, d, kernel);
+    } else {
+      const idx = blockMinibatch(n, d, B, rng);
+      batchRows = idx.length;
+      if (!batchBuffer || batchBuffer.length < batchRows * d) batchBuffer = new Float32Array(batchRows * d);
+      const batch = rows.gather(idx, batchBuffer.subarray(0, batchRows * d));
+      stats = await backend.dataTerm(batch, batchRows, state.points, k, d, kernel);
     }
     const self = await selfTerm(backend, kernel, state.points, state.weights, k, d);
 
@@ -201,7 +238,7 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
     let lin = 0;
     const c = new Float64Array(k);
     for (let j = 0; j < k; j++) {
-      c[j] = stats.hSum[j] / B;
+      c[j] = stats.hSum[j] / batchRows;
       lin += state.weights[j] * c[j];
     }
     // The stability penalty is part of the objective, so of the running loss the plateau test reads.
@@ -217,7 +254,7 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
       const wj = state.weights[j];
       const row = j * d;
       for (let t = 0; t < d; t++) {
-        const data = (stats.gSum[j] * state.points[row + t] - stats.gx[row + t]) / B;
+        const data = (stats.gSum[j] * state.points[row + t] - stats.gx[row + t]) / batchRows;
         grad[row + t] = 2 * wj * (data - self.grad[row + t]);
       }
     }

@@ -24,14 +24,21 @@ export class KernelColumns {
     pool: Float32Array,
     readonly size: number,
     readonly d: number,
+    /** Cap on the cached values (float64), below MAX_CACHED_VALUES; e.g. from a memory budget. */
+    private readonly maxCachedValues = MAX_CACHED_VALUES,
   ) {
     this.prepared = prepareRows(pool, size, d);
   }
 
   async get(items: ArrayLike<number>): Promise<Float64Array[]> {
-    const missing = Array.from(new Set(Array.from(items))).filter((u) => !this.cache.has(u));
+    const wanted = Array.from(new Set(Array.from(items)));
+    let missing = wanted.filter((u) => !this.cache.has(u));
     if (missing.length) {
-      if ((this.cache.size + missing.length) * this.size > MAX_CACHED_VALUES) this.cache.clear();
+      // Full: start over, computing every wanted column (those cached too, which the clear drops).
+      if ((this.cache.size + missing.length) * this.size > Math.min(MAX_CACHED_VALUES, this.maxCachedValues)) {
+        this.cache.clear();
+        missing = wanted;
+      }
       const points = new Float32Array(missing.length * this.d);
       const e = this.d + 2;
       missing.forEach((u, j) => points.set(this.prepared.subarray(u * e, u * e + this.d), j * this.d));

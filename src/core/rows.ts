@@ -5,7 +5,15 @@
 export interface RowSource {
   readonly rows: number;
   readonly cols: number;
-  /** Rows [start, start + count) as a fresh or borrowed row-major array; callers must not modify it. */
+  /**
+   * True when the rows are in memory; false when every read goes to a file. Scattered reads of a
+   * file are slow, so the descent then draws its minibatches as blocks of consecutive rows.
+   */
+  readonly resident: boolean;
+  /**
+   * Rows [start, start + count) as a row-major array: borrowed from a resident source (callers
+   * must not modify it), fresh from a source that is not resident.
+   */
   read(start: number, count: number): Float32Array;
   /**
    * The given rows, in the given order, row-major; into `out` when given (reusing a buffer
@@ -16,6 +24,8 @@ export interface RowSource {
 
 /** Rows held in one row-major Float32Array. */
 export class DenseRows implements RowSource {
+  readonly resident = true;
+
   constructor(
     readonly data: Float32Array,
     readonly rows: number,
@@ -47,6 +57,7 @@ export class DenseRows implements RowSource {
 export class AffineRows implements RowSource {
   readonly rows: number;
   readonly cols: number;
+  readonly resident: boolean;
 
   constructor(
     private readonly source: RowSource,
@@ -55,11 +66,13 @@ export class AffineRows implements RowSource {
   ) {
     this.rows = source.rows;
     this.cols = source.cols;
+    this.resident = source.resident;
   }
 
   read(start: number, count: number): Float32Array {
-    // slice() copies with memcpy; Float32Array.from would iterate element by element.
-    return this.apply(this.source.read(start, count).slice());
+    // A resident source lends its rows: copied first (slice() is a memcpy). Others' are fresh.
+    const block = this.source.read(start, count);
+    return this.apply(this.source.resident ? block.slice() : block);
   }
 
   gather(indices: ArrayLike<number>, into?: Float32Array): Float32Array {

@@ -28,6 +28,14 @@ export interface SelectContext {
   now?: () => number;
   /** The caller owns the rows and does not need them afterwards: raw and standardize spaces transform them in place. */
   sourceIsScratch?: boolean;
+  /**
+   * Bytes the selection may hold in copies of the rows: a source held in memory (DenseRows)
+   * counts first, then the transformed rows, the descent's shuffled copy and the refinement's
+   * kernel-column cache take what is left; what does not fit is read from the source in blocks
+   * (see RowSource.resident). Samples (scoring rows, the constant term's reference rows, swap
+   * candidates) are small and bounded by the options, not by this. Default: no limit.
+   */
+  memoryBudgetBytes?: number;
   /** Warm start: k starting points in the selection space (row-major), instead of k-means++ seeds. */
   initialPoints?: Float32Array;
   /**
@@ -99,7 +107,9 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   };
 
   progress('prepare');
-  const space = await prepareSpace(source, parseSpace(o.space), backend, rng, { inPlace: ctx.sourceIsScratch });
+  let budgetLeft = (ctx.memoryBudgetBytes ?? Infinity) - (source instanceof DenseRows ? source.data.byteLength : 0);
+  const space = await prepareSpace(source, parseSpace(o.space), backend, rng, { inPlace: ctx.sourceIsScratch, maxCopyBytes: Math.max(0, budgetLeft) });
+  budgetLeft -= space.heldBytes;
   const rows = space.rows;
   const d = rows.cols;
   const fixedPoints = f > 0 ? await space.transform(given.fixed.vectors, f) : new Float32Array(0);
@@ -185,6 +195,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
       now,
       shouldStop: () => ctx.signal?.aborted ?? false,
       initialTrace: state === resume?.state ? resume.trace : undefined,
+      maxCopyBytes: Math.max(0, budgetLeft),
       checkpointEveryMs: ctx.checkpoint?.everyMs,
       onCheckpoint: save ? (st, rngState, trace) => save({ version: 1, state: st, rng: rngState, trace }) : undefined,
       onProgress: (p) => {
@@ -257,7 +268,10 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   const fixedSlots = Int32Array.from({ length: f }, (_, i) => rowSlots + i);
   const poolC = f > 0 ? concat(Float64Array.from(poolCValues), await dataTermMeans(constant.reference, backend, kernel, fixedPoints, f)) : Float64Array.from(poolCValues);
   const slotOf = new Map(poolRows.map((r, i) => [r, i]));
-  const columns = new KernelColumns(backend, kernel, withFixed(rows.gather(poolRows)), rowSlots + f, d);
+  // The descent's copy is gone by now: its share of the budget goes to the cached columns, with room
+  // for 2(k + f) columns whatever the budget (the current set's and as many candidates').
+  const columnValues = Math.max(budgetLeft / 8, 2 * total * (rowSlots + f));
+  const columns = new KernelColumns(backend, kernel, withFixed(rows.gather(poolRows)), rowSlots + f, d, columnValues);
   let bonus: Float64Array | undefined;
   if (threshold > 0 && kp > 0) {
     bonus = new Float64Array(rowSlots + f);

@@ -18,6 +18,8 @@ export interface PreparedSpace {
    * fixed items and earlier representatives enter the selection space through it.
    */
   transform: (vectors: Float32Array, count: number) => Promise<Float32Array>;
+  /** Bytes of rows this space holds in memory beyond the source (a transformed copy, PCA's projection). */
+  heldBytes: number;
 }
 
 /**
@@ -77,14 +79,16 @@ export function columnMoments(rows: RowSource, blockRows = BLOCK_ROWS): { mean: 
  * each column by its standard deviation (constant columns become 0). `pca:M` projects the
  * centred rows on the top M principal axes, found by randomized subspace iteration on XᵀX
  * (Halko, Martinsson & Tropp, SIAM Review 2011, Alg. 4.4 with q power steps and 2M + 10 columns),
- * whose products run on the compute backend; the projected rows are held in memory (N×M floats).
+ * whose products run on the compute backend; the projected rows are held in memory (N×M floats,
+ * whatever `maxCopyBytes` says). Otherwise the transformed rows are copied once when they fit in
+ * `maxCopyBytes` (and 1 GiB), else transformed on every read.
  */
 export async function prepareSpace(
   source: RowSource,
   spec: SpaceSpec,
   backend: ComputeBackend,
   rng: Rng,
-  options: { inPlace?: boolean } = {},
+  options: { inPlace?: boolean; maxCopyBytes?: number } = {},
 ): Promise<PreparedSpace> {
   const { mean, std } = columnMoments(source);
   const shift = Float32Array.from(mean);
@@ -101,9 +105,10 @@ export async function prepareSpace(
     // one copy of the data fewer.
     if (options.inPlace && source instanceof DenseRows) {
       transformInPlace(source.data, source.cols, shift, scale);
-      return { rows: source, spec, transform: affine };
+      return { rows: source, spec, transform: affine, heldBytes: 0 };
     }
-    return { rows: materialise(new AffineRows(source, shift, scale)), spec, transform: affine };
+    const rows = materialise(new AffineRows(source, shift, scale), options.maxCopyBytes ?? Infinity);
+    return { rows, spec, transform: affine, heldBytes: rows instanceof DenseRows ? rows.data.byteLength : 0 };
   }
   const centred = new AffineRows(source, shift, null);
   const d = source.cols;
@@ -139,6 +144,7 @@ export async function prepareSpace(
     spec,
     explainedVarianceRatio: order.map((i) => (totalVariance > 0 ? Math.max(values[i], 0) / totalVariance : 0)),
     axes,
+    heldBytes: projected.byteLength,
     transform: async (vectors, count) => (count === 0 ? new Float32Array(0) : backend.gemm(await affine(vectors), count, d, axes, d, M, false, false)),
   };
 }
@@ -156,8 +162,8 @@ function transformInPlace(data: Float32Array, d: number, shift: Float32Array, sc
   }
 }
 
-function materialise(rows: AffineRows): RowSource {
-  if (rows.rows * rows.cols > MATERIALISE_MAX_VALUES) return rows;
+function materialise(rows: AffineRows, maxBytes: number): RowSource {
+  if (rows.rows * rows.cols > MATERIALISE_MAX_VALUES || rows.rows * rows.cols * 4 > maxBytes) return rows;
   return new DenseRows(rows.read(0, rows.rows), rows.rows, rows.cols);
 }
 

@@ -2,7 +2,9 @@ import { closeSync, createReadStream, fstatSync, openSync, readFileSync, readSyn
 import { join } from 'node:path';
 import { createInterface } from 'node:readline';
 import { CairnError, requireArg } from '../errors.js';
+import { DenseRows } from '../core/rows.js';
 import { ITEMS_FILE, MATRIX_FILE } from './dataset-writer.js';
+import { FileRows } from './file-rows.js';
 import type { DatasetFormat } from './reader.js';
 
 /** Layout version of a stored dataset folder; bump when the files change meaning. */
@@ -35,6 +37,11 @@ export interface StoredDataset {
   readRows(start: number, count: number): Float32Array;
   /** The whole rows × cols matrix in memory (rows·cols·4 bytes). */
   loadMatrix(): Float32Array;
+  /**
+   * The matrix for a selection: in memory when its rows·cols·4 bytes fit `budgetBytes`, else read
+   * from the file on demand (close() it when done; see closeRows).
+   */
+  rowSource(budgetBytes?: number): DenseRows | FileRows;
   /** Ids and labels in row order. */
   readItems(): Promise<{ ids: string[]; labels: (string | null)[] }>;
 }
@@ -103,6 +110,16 @@ export function openDataset(storeDir: string, datasetId: string): StoredDataset 
       const out = new Float32Array(rows * cols);
       readInto(out, 0);
       return out;
+    },
+    rowSource(budgetBytes = Infinity) {
+      if (rows * cols * 4 <= budgetBytes) return new DenseRows(this.loadMatrix(), rows, cols);
+      try {
+        return new FileRows(matrixPath, rows, cols);
+      } catch (err) {
+        if ((err as NodeJS.ErrnoException).code === 'ENOENT') throw new CairnError('DATASET_NOT_FOUND', undefined, { datasetId });
+        if (err instanceof RangeError) throw new CairnError('DATASET_STORE_CORRUPT', err.message, { datasetId });
+        throw err;
+      }
     },
     async readItems() {
       const ids: string[] = [];

@@ -43,6 +43,7 @@ export default async function processTask(job: SandboxedJob<TaskRef>, token?: st
     shutdown: signal,
     computeThreads: settings.computeThreads,
     checkpointEveryMs: settings.checkpointEveryMs,
+    memoryBudgetBytes: settings.memoryBudgetBytes ?? undefined,
     modelsDir: settings.modelsDir,
     // Published for the API's QueueEvents; a lost update is harmless (state.json is the truth).
     onState: (state) => void job.updateProgress({ ref, state } satisfies ProgressMessage).catch(() => undefined),

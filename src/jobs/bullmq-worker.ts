@@ -1,7 +1,7 @@
 import { hostname } from 'node:os';
 import { Worker, type Job } from 'bullmq';
 import type { Logger } from 'pino';
-import type { Config } from '../config.js';
+import { memoryBudgetBytes, type Config } from '../config.js';
 import { QUEUE_NAMES, type ProgressMessage } from './bullmq-queue.js';
 import { entryFile } from './entry-file.js';
 import { errorOf } from './task-runner.js';
@@ -19,6 +19,7 @@ export function bullWorkerOptions(config: Config, log: Logger): BullWorkerOption
     maxAttempts: config.CAIRN_JOB_ATTEMPTS,
     computeThreads: config.CAIRN_COMPUTE_THREADS,
     checkpointEveryMs: config.CAIRN_CHECKPOINT_SECONDS * 1000,
+    memoryBudgetBytes: memoryBudgetBytes(config),
     modelsDir: config.CAIRN_MODELS_DIR,
     stalledMs: config.CAIRN_STALLED_SECONDS * 1000,
     log,
@@ -35,6 +36,8 @@ export interface BullWorkerOptions {
   maxAttempts: number;
   computeThreads: number;
   checkpointEveryMs: number;
+  /** Bytes a selection may hold in copies of its rows (SelectContext.memoryBudgetBytes); unset: no limit. */
+  memoryBudgetBytes?: number;
   /** Folder of the embedding models. Default ./models. */
   modelsDir?: string;
   /** A task whose worker stopped renewing its lock this long ago goes to another worker. */
@@ -48,6 +51,8 @@ export interface SandboxSettings {
   maxAttempts: number;
   computeThreads: number;
   checkpointEveryMs: number;
+  /** null: no limit (JSON has no Infinity). */
+  memoryBudgetBytes: number | null;
   modelsDir?: string;
   logLevel: string;
 }
@@ -69,7 +74,7 @@ const STOP_MS = 15_000;
 export async function startBullWorker(o: BullWorkerOptions): Promise<{ close(graceMs: number): Promise<void> }> {
   const store = new TaskStore(o.dataDir);
   const entry = entryFile(import.meta.url, 'bullmq-sandbox');
-  const settings: SandboxSettings = { dataDir: o.dataDir, maxAttempts: o.maxAttempts, computeThreads: o.computeThreads, checkpointEveryMs: o.checkpointEveryMs, modelsDir: o.modelsDir, logLevel: o.log.level };
+  const settings: SandboxSettings = { dataDir: o.dataDir, maxAttempts: o.maxAttempts, computeThreads: o.computeThreads, checkpointEveryMs: o.checkpointEveryMs, memoryBudgetBytes: o.memoryBudgetBytes ?? null, modelsDir: o.modelsDir, logLevel: o.log.level };
   // A dead worker's job moves on at the first stalled check that finds its lock expired and the job
   // marked by an earlier check: at most lockDuration + stalledInterval = stalledMs after the death.
   // The lock is renewed every quarter of its life, so only an event-loop pause of over ~3/4 of it

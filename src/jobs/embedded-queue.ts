@@ -17,6 +17,8 @@ export interface EmbeddedQueueOptions {
   maxAttempts: number;
   computeThreads: number;
   checkpointEveryMs: number;
+  /** Bytes a selection may hold in copies of its rows (SelectContext.memoryBudgetBytes); unset: no limit. */
+  memoryBudgetBytes?: number;
   /** Folder of the embedding models. Default ./models. */
   modelsDir?: string;
   /** First retry delay; doubles per attempt. Default 1000 ms. */
@@ -179,6 +181,7 @@ export class EmbeddedQueue implements JobQueue {
       maxAttempts: this.o.maxAttempts,
       computeThreads: this.o.computeThreads,
       checkpointEveryMs: this.o.checkpointEveryMs,
+      memoryBudgetBytes: this.o.memoryBudgetBytes,
       modelsDir: this.o.modelsDir,
       logLevel: this.o.log.level,
     };

@@ -2,7 +2,7 @@ import { join } from 'node:path';
 import { embedRows } from '../embed/embedder.js';
 import type { ReadyModel } from '../embed/model-registry.js';
 import type { FixedItems, PreviousSelection } from '../core/given-items.js';
-import type { DenseRows } from '../core/rows.js';
+import type { RowSource } from '../core/rows.js';
 import { openDataset, type StoredDataset } from '../data/dataset-store.js';
 import { CairnError } from '../errors.js';
 import type { ProcessorContext } from './processor.js';
@@ -18,7 +18,7 @@ export interface GivenSource {
   ctx: Pick<ProcessorContext, 'store' | 'ref' | 'signal' | 'computeThreads' | 'modelsDir'>;
   datasetId: string;
   /** The job's rows in its source space (before any in-place transform). */
-  rows: DenseRows;
+  rows: RowSource;
   ids: string[];
   model: ReadyModel | null;
 }

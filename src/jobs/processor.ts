@@ -11,6 +11,8 @@ export interface ProcessorContext {
   /** ORT intra-op threads for this task's kernels (0: every core). */
   computeThreads: number;
   checkpointEveryMs: number;
+  /** Bytes a selection may hold in copies of its rows (SelectContext.memoryBudgetBytes); unset: no limit. */
+  memoryBudgetBytes?: number;
   /** Folder of the embedding models (a model's .onnx and .json description). */
   modelsDir: string;
 }

@@ -22,6 +22,8 @@ export interface AttemptOptions {
   shutdown?: AbortSignal;
   computeThreads: number;
   checkpointEveryMs: number;
+  /** Bytes a selection may hold in copies of its rows (SelectContext.memoryBudgetBytes); unset: no limit. */
+  memoryBudgetBytes?: number;
   /** Default ./models. */
   modelsDir?: string;
   /** Every progress update (after it has been written to state.json, at most ~4 a second). */
@@ -96,7 +98,7 @@ export async function runAttempt(o: AttemptOptions): Promise<{ outcome: AttemptO
     await write({ ...state, status: 'running', attempt: o.attempt, startedAt: state.startedAt ?? now(), updatedAt: now(), runner: { host: hostname(), pid: process.pid } });
     o.onState?.(state);
     o.log?.info({ task: ref, attempt: o.attempt }, 'task started');
-    await PROCESSORS[ref.kind]({ store, ref, signal: stop.signal, onProgress, computeThreads: o.computeThreads, checkpointEveryMs: o.checkpointEveryMs, modelsDir: o.modelsDir ?? DEFAULT_MODELS_DIR });
+    await PROCESSORS[ref.kind]({ store, ref, signal: stop.signal, onProgress, computeThreads: o.computeThreads, checkpointEveryMs: o.checkpointEveryMs, memoryBudgetBytes: o.memoryBudgetBytes, modelsDir: o.modelsDir ?? DEFAULT_MODELS_DIR });
     await writing;
     await write({ ...state, status: 'completed', progress: { ...state.progress, phase: ref.kind === 'job' ? 'done' : 'ingest', fraction: 1 }, error: null, finishedAt: now(), updatedAt: now() });
     o.log?.info({ task: ref, attempt: o.attempt }, 'task completed');

@@ -18,6 +18,7 @@ export interface TaskThreadData {
   maxAttempts: number;
   computeThreads: number;
   checkpointEveryMs: number;
+  memoryBudgetBytes?: number;
   modelsDir?: string;
   logLevel: string;
 }
@@ -40,6 +41,7 @@ const result = await runAttempt({
   shutdown: shutdown.signal,
   computeThreads: data.computeThreads,
   checkpointEveryMs: data.checkpointEveryMs,
+  memoryBudgetBytes: data.memoryBudgetBytes,
   modelsDir: data.modelsDir,
   log,
   onState: (state) => port.postMessage({ type: 'state', state } satisfies TaskThreadMessage),
