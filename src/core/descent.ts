@@ -201,6 +201,9 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
   let anchorGrad: Float64Array | undefined;
   // The shuffled copy (or the full batch) in prepared form: n × (d + 2) float32.
   const copyFits = n * (d + 2) * 4 <= (ctx.maxCopyBytes ?? Infinity);
+  // The copy pays off only when the descent reads about every row at least once: building it
+  // costs a pass over all n rows (at 1M × 128, more than 150 iterations of 2,048 rows).
+  const copyPays = o.maxIterations * B >= n;
 
   while (state.iteration < o.maxIterations) {
     const elapsed = now() - started;
@@ -215,7 +218,7 @@ export async function runDescent(ctx: DescentContext, state: DescentState, o: De
     if (B === n && copyFits) {
       fullBatch ??= prepareRows(rows.read(0, n), n, d);
       stats = await backend.dataTermPrepared(fullBatch, B, state.points, k, d, kernel);
-    } else if (n * d <= SHUFFLED_COPY_MAX_VALUES && copyFits) {
+    } else if (n * d <= SHUFFLED_COPY_MAX_VALUES && copyFits && copyPays) {
       // A window at a random offset of one random permutation of the rows is a uniformly random
       // B-subset, read without copying; gathering B scattered rows each step cost more than the
       // kernel. The copy is kept in prepared form [x, |x|², 1], built once instead of per call.
