@@ -8,12 +8,12 @@
 // kernel at cairn's own scale (kernel.a from cairn's result JSON).
 import { rmSync } from 'node:fs';
 import { readFile } from 'node:fs/promises';
-import os from 'node:os';
 import { dirname, join, resolve } from 'node:path';
 import { fileURLToPath } from 'node:url';
 import { measureProcess, hasGnuTime } from './lib/measure.mjs';
 import { writeNpyFloat32 } from './lib/npy.mjs';
-import { buildDist, loadavg, snapshotDist, uptime } from './lib/machine.mjs';
+import { buildDist, loadavg, machineLine, snapshotDist, uptime } from './lib/machine.mjs';
+import { describeMixture, MIXTURE_COMPONENTS, mixtureMatrix } from './lib/mixture.mjs';
 
 const ROOT = resolve(dirname(fileURLToPath(import.meta.url)), '..', '..');
 const PEER = join(ROOT, 'scripts', 'bench', 'scale-peer.py');
@@ -28,7 +28,7 @@ const option = (name, fallback) => {
 };
 const N = option('--rows', 1_000_000);
 const D = 128;
-const COMPONENTS = 64;
+const COMPONENTS = MIXTURE_COMPONENTS;
 const K = option('--k', 256);
 const SEED = option('--seed', 0);
 const SAMPLE = Math.min(option('--sample', 20_000), N);
@@ -46,25 +46,9 @@ const { selfTerm } = await dist('core/descent.js');
 const { Rng } = await dist('core/random.js');
 const { OnnxBackend } = await dist('compute/onnx-backend.js');
 
-// --- data: mixture of 64 Gaussians ---------------------------------------------------------------
-// Centres N(0, 5²) per coordinate, unit-variance noise, component weights ∝ Exp(1) draws (unequal).
+// --- data: mixture of 64 Gaussians (lib/mixture.mjs) ---------------------------------------------
 const tGen = Date.now();
-const rng = new Rng(SEED);
-const centres = new Float64Array(COMPONENTS * D);
-for (let i = 0; i < centres.length; i++) centres[i] = 5 * rng.normal();
-const raw = Array.from({ length: COMPONENTS }, () => -Math.log(1 - rng.next()));
-const total = raw.reduce((s, v) => s + v, 0);
-const cdf = [];
-raw.reduce((s, v, i) => (cdf[i] = s + v / total), 0);
-const data = new Float32Array(N * D);
-for (let r = 0; r < N; r++) {
-  const u = rng.next();
-  let c = 0;
-  while (c < COMPONENTS - 1 && u >= cdf[c]) c++;
-  const off = r * D;
-  const co = c * D;
-  for (let j = 0; j < D; j++) data[off + j] = centres[co + j] + rng.normal();
-}
+const data = mixtureMatrix(Rng, { rows: N, cols: D, seed: SEED, components: COMPONENTS });
 const npyPath = join(work, 'data.npy');
 const npyBytes = await writeNpyFloat32(npyPath, data, N, D);
 const genSeconds = (Date.now() - tGen) / 1000;
@@ -73,8 +57,8 @@ const peerEnv = { ...process.env };
 const unpinned = ['OPENBLAS_CORETYPE', 'OPENBLAS_L2_SIZE'].filter((v) => peerEnv[v] !== undefined);
 for (const v of ['OPENBLAS_CORETYPE', 'OPENBLAS_L2_SIZE']) delete peerEnv[v];
 
-console.log(`scale-select bench: ${N} × ${D} float32, mixture of ${COMPONENTS} Gaussians (centres N(0,5²), unit noise, weights ∝ Exp(1)) → ${(npyBytes / 2 ** 20).toFixed(1)} MiB .npy (generated in ${genSeconds.toFixed(1)} s)`);
-console.log(`machine: ${os.availableParallelism()} cores (${os.cpus()[0]?.model ?? '?'}), ${(os.totalmem() / 2 ** 30).toFixed(1)} GiB, node ${process.version}`);
+console.log(`scale-select bench: ${N} × ${D} float32, ${describeMixture(COMPONENTS)} → ${(npyBytes / 2 ** 20).toFixed(1)} MiB .npy (generated in ${genSeconds.toFixed(1)} s)`);
+console.log(machineLine());
 console.log(`k ${K}, seed ${SEED}, scoring sample ${SAMPLE} rows; peak RSS via ${hasGnuTime() ? 'GNU time -v' : '/proc VmHWM polling'}`);
 console.log(`peer: ${PYTHON} ${PEER}; ${unpinned.length ? `unset for the peer only: ${unpinned.join(', ')}` : 'no OPENBLAS_* pins in the environment'}`);
 console.log('');

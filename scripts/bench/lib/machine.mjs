@@ -8,6 +8,21 @@ import { pathToFileURL } from 'node:url';
 
 export const loadavg = () => os.loadavg().map((v) => v.toFixed(2)).join(' ');
 
+/** The machine facts line every benchmark prints: cores and CPU model, memory, Node version. */
+export const machineLine = () =>
+  `machine: ${os.availableParallelism()} cores (${os.cpus()[0]?.model ?? '?'}), ${(os.totalmem() / 2 ** 30).toFixed(1)} GiB, node ${process.version}`;
+
+/**
+ * MiB/s at which this process can touch memory it has not touched before (allocate and fill
+ * `mib` MiB): page faults. On some virtual machines this is far below memory bandwidth, and every
+ * large new buffer, file write (page cache) or copy of a dataset pays it.
+ */
+export function firstTouchMibPerSecond(mib = 256) {
+  const t = performance.now();
+  Buffer.alloc(mib * 2 ** 20, 1);
+  return mib / ((performance.now() - t) / 1000);
+}
+
 export const uptime = () => {
   const r = spawnSync('uptime', { encoding: 'utf8' });
   return r.status === 0 ? r.stdout.trim() : `load average: ${loadavg()}`;
