@@ -4,16 +4,18 @@
 // under the same load in the same run.
 //
 //   npm run build && node scripts/bench/status-poll.mjs [--connections 100] [--seconds 15]
-//       [--warmup 2] [--rows 200000] [--cols 64] [--k 64] [--idle]
+//       [--warmup 2] [--rows 200000] [--cols 64] [--k 64] [--idle] [--pin]
 //
 // What it does:
-//   1. Starts `node dist/cli/main.js serve` in a child process (embedded queue: REDIS_URL and
-//      CAIRN_API_KEYS are removed from its environment) on a free port, over a fresh temp data
-//      folder, with the rate limiter off (CAIRN_RATE_LIMIT_PER_MINUTE=0: it would answer 429 to a
-//      load test) and LOG_LEVEL=warn. A separate process, so the load generator (autocannon, in
-//      this process) does not share the API's event loop. The rest of the environment is passed
-//      through, e.g. `CAIRN_COMPUTE_THREADS=1 node scripts/bench/status-poll.mjs` or
-//      `UV_THREADPOOL_SIZE=1 node scripts/bench/status-poll.mjs`.
+//   1. Starts `node dist/cli/main.js serve` (from a private copy of dist/, see lib/machine.mjs) in
+//      a child process (embedded queue: REDIS_URL is removed from its environment) on a free port,
+//      over a fresh temp data folder, configured as a deployed server polls: one API key generated
+//      for the run (every /v1 request authenticates), the rate limiter on with a limit the load
+//      cannot reach (CAIRN_RATE_LIMIT_PER_MINUTE=10000000, so its bookkeeping is measured but no
+//      429 answers), LOG_LEVEL at its default (info). A separate process, so the load generator
+//      (autocannon, in this process) does not share the API's event loop. The rest of the
+//      environment is passed through, e.g. `CAIRN_COMPUTE_THREADS=1 node scripts/bench/status-poll.mjs`,
+//      `LOG_LEVEL=debug …` (one line per request) or `CAIRN_RATE_LIMIT_PER_MINUTE=0 …` (limiter off).
 //   2. Uploads a generated rows × cols float32 .npy (16 Gaussian clusters, seeded PRNG), waits for
 //      its ingestion, creates a selection that cannot finish during the measurement
 //      (maxIterations 1,000,000, plateauTolerance 0) and waits until it is running in its descent.
@@ -24,6 +26,9 @@
 //      iteration before and after each run, and checks that the job was still running at the end.
 //   4. Cancels the job, stops the server (SIGTERM, waits for its exit) and removes the temp folder,
 //      also on failure (the child is killed on any error).
+//   --pin runs the server on core 0 and this process (the load generator) on core 1 (taskset), so
+//   the two do not preempt each other; the selection's thread then shares core 0 with the event
+//   loop at its lower priority. Not the default: the default rows are the unpinned machine.
 //   --idle also measures both targets before the job is created (no selection running), which
 //   separates what the running selection costs from what the route costs: the status row then
 //   reads a job that was cancelled at once (the same two files; a completed job would read a third).
@@ -41,6 +46,9 @@
 //     back to back at the start of every second, so it measures bursts, not paced polling.)
 //   * autocannon records latencies in whole milliseconds (an HDR histogram with 1 ms resolution),
 //     and only of 2xx answers; hence the separate non-200 count, which must be 0.
+//   * "loop µs/req" is the API's main thread CPU time (user + system) per answer: the cost of one
+//     request to the event loop, including the kernel's work for its socket reads and writes.
+//     It is the steadiest figure on a shared machine, so compare changes of the route with it.
 //   * "server CPU" is the API process (event loop + libuv pool + the selection's thread), "loadgen
 //     CPU" this process (autocannon), "others CPU" the rest of the machine (other processes, the
 //     kernel), all in % of one core over the recorded run (Linux /proc; 2 cores = 200% in all).
@@ -48,7 +56,7 @@
 //     rows are not representative: run again on a quiet machine.
 //   * The descent iteration counts show that the selection really ran during the load, and how
 //     much the load slowed it (iterations per second per row).
-import { spawn } from 'node:child_process';
+import { spawn, spawnSync } from 'node:child_process';
 import { existsSync, openAsBlob, readFileSync } from 'node:fs';
 import { mkdtemp, rm } from 'node:fs/promises';
 import net from 'node:net';
@@ -56,16 +64,18 @@ import os from 'node:os';
 import { join } from 'node:path';
 import { setTimeout as sleep } from 'node:timers/promises';
 import { fileURLToPath } from 'node:url';
+import { snapshotDist } from './lib/machine.mjs';
 import { writeNpyFloat32 } from './lib/npy.mjs';
 import { prng } from '../demo-data.mjs'; // mulberry32
 
 const root = fileURLToPath(new URL('../../', import.meta.url));
-const cli = join(root, 'dist', 'cli', 'main.js');
-if (!existsSync(cli) || !existsSync(join(root, 'dist', 'config.js'))) {
-  console.error(`status-poll: ${cli} not found: run \`npm run build\` first.`);
+if (!existsSync(join(root, 'dist', 'cli', 'main.js')) || !existsSync(join(root, 'dist', 'config.js'))) {
+  console.error('status-poll: dist/ not found: run `npm run build` first.');
   process.exit(1);
 }
-const { loadConfig } = await import('../../dist/config.js');
+const { cli, dist } = await snapshotDist(root, 'poll');
+const { loadConfig } = await dist('config.js');
+const { hashApiKey, newApiKey } = await dist('api/auth.js');
 const { default: autocannon } = await import('autocannon');
 
 const flag = (name, fallback) => {
@@ -81,6 +91,10 @@ const K = flag('--k', 64);
 /** Requests per second per connection (a dashboard polling on a timer); unset: closed loop, as fast as answers come. */
 const RATE = flag('--rate', 0);
 const IDLE = process.argv.includes('--idle');
+const PIN = process.argv.includes('--pin');
+/** The run's API key: every /v1 request carries it, as a deployed server requires. */
+const API_KEY = newApiKey();
+const AUTH = { authorization: `Bearer ${API_KEY}` };
 const TARGET_P99_MS = 20;
 
 // ---------------------------------------------------------------------------------------------
@@ -115,7 +129,8 @@ function freePort() {
 }
 
 function startChild(env) {
-  const child = spawn(process.execPath, [cli, 'serve'], { cwd: root, env, stdio: ['ignore', 'pipe', 'pipe'] });
+  const [cmd, args] = PIN ? ['taskset', ['-c', '0', process.execPath, cli, 'serve']] : [process.execPath, [cli, 'serve']];
+  const child = spawn(cmd, args, { cwd: root, env, stdio: ['ignore', 'pipe', 'pipe'] });
   const tail = [];
   const keep = (b) => {
     for (const line of String(b).split('\n').filter(Boolean)) {
@@ -144,7 +159,7 @@ async function stopChild(server, ms) {
 // HTTP helpers.
 
 async function api(base, method, path, body) {
-  const init = { method, headers: {} };
+  const init = { method, headers: { ...AUTH } };
   if (body instanceof FormData) init.body = body;
   else if (body !== undefined) {
     init.body = JSON.stringify(body);
@@ -184,13 +199,13 @@ async function jobState(base, jobId) {
 function cannon(url, seconds) {
   // With a rate, autocannon corrects for coordinated omission (a late answer delays the next send;
   // latencies are counted from when the request was due), so paced figures are not flattered.
-  return autocannon({ url, connections: CONNECTIONS, duration: seconds, pipelining: 1, timeout: 10, ...(RATE > 0 ? { connectionRate: RATE } : {}) });
+  return autocannon({ url, connections: CONNECTIONS, duration: seconds, pipelining: 1, timeout: 10, headers: AUTH, ...(RATE > 0 ? { connectionRate: RATE } : {}) });
 }
 
-/** CPU seconds (user + system) of a process so far, from /proc; null where there is none. */
-function processCpuSeconds(pid) {
+/** CPU seconds (user + system) of a process (or, with `tid`, one of its threads) so far, from /proc; null where there is none. */
+function processCpuSeconds(pid, tid) {
   try {
-    const stat = readFileSync(`/proc/${pid}/stat`, 'utf8');
+    const stat = readFileSync(tid ? `/proc/${pid}/task/${tid}/stat` : `/proc/${pid}/stat`, 'utf8');
     const fields = stat.slice(stat.lastIndexOf(')') + 2).split(' ');
     return (Number(fields[11]) + Number(fields[12])) / CLOCK_TICKS;
   } catch {
@@ -216,12 +231,14 @@ async function measure(label, base, path, jobId) {
   if (WARMUP > 0) await cannon(base + path, WARMUP);
   const before = jobId ? await jobState(base, jobId) : null;
   const s0 = processCpuSeconds(serverPid);
+  const m0 = processCpuSeconds(serverPid, serverPid);
   const h0 = hostBusySeconds();
   const g0 = process.cpuUsage();
   const w0 = Date.now();
   const r = await cannon(base + path, SECONDS);
   const wall = (Date.now() - w0) / 1000;
   const s1 = processCpuSeconds(serverPid);
+  const m1 = processCpuSeconds(serverPid, serverPid);
   const h1 = hostBusySeconds();
   const g = process.cpuUsage(g0);
   const after = jobId ? await jobState(base, jobId) : null;
@@ -243,6 +260,9 @@ async function measure(label, base, path, jobId) {
     timeouts: r.timeouts,
     duration: r.duration,
     serverCpu: s0 !== null && s1 !== null ? ((s1 - s0) / wall) * 100 : null,
+    // The main thread's CPU per answer: what one request costs the event loop, kernel time of its
+    // socket calls included. Unlike latency, it hardly depends on what else runs on the machine.
+    loopUsPerRequest: m0 !== null && m1 !== null && ok + non200 > 0 ? ((m1 - m0) / (ok + non200)) * 1e6 : null,
     loadgenCpu: ((g.user + g.system) / 1e6 / wall) * 100,
     // Everything else on the machine: other processes, the kernel's own work.
     othersCpu: s0 !== null && s1 !== null && h0 !== null && h1 !== null ? Math.max(0, ((h1 - h0 - (s1 - s0)) / wall) * 100 - ((g.user + g.system) / 1e6 / wall) * 100) : null,
@@ -255,14 +275,14 @@ const iterOf = (s) => s?.progress?.iteration ?? null;
 const pad = (v, n) => String(v).padStart(n);
 
 function printTable(rows) {
-  const head = `${'target'.padEnd(32)} ${pad('req/s', 8)} ${pad('p50', 5)} ${pad('p90', 5)} ${pad('p99', 5)} ${pad('max', 6)} ${pad('non-200', 8)} ${pad('errors', 7)} ${pad('server CPU', 10)} ${pad('loadgen CPU', 11)} ${pad('others CPU', 10)}  descent iterations (start → end, it/s)`;
+  const head = `${'target'.padEnd(32)} ${pad('req/s', 8)} ${pad('p50', 5)} ${pad('p90', 5)} ${pad('p99', 5)} ${pad('max', 6)} ${pad('non-200', 8)} ${pad('errors', 7)} ${pad('server CPU', 10)} ${pad('loop µs/req', 11)} ${pad('loadgen CPU', 11)} ${pad('others CPU', 10)}  descent iterations (start → end, it/s)`;
   console.log(head);
   for (const r of rows) {
     const it0 = iterOf(r.before);
     const it1 = iterOf(r.after);
     const its = it0 !== null && it1 !== null ? `${it0} → ${it1} (${((it1 - it0) / r.duration).toFixed(1)} it/s)` : r.before ? '?' : '-';
     console.log(
-      `${r.label.padEnd(32)} ${pad(r.rps.toFixed(0), 8)} ${pad(r.p50, 5)} ${pad(r.p90, 5)} ${pad(r.p99, 5)} ${pad(r.max, 6)} ${pad(r.non200, 8)} ${pad(r.errors + r.timeouts, 7)} ${pad(r.serverCpu === null ? '?' : `${r.serverCpu.toFixed(0)}%`, 10)} ${pad(`${r.loadgenCpu.toFixed(0)}%`, 11)} ${pad(r.othersCpu === null ? '?' : `${r.othersCpu.toFixed(0)}%`, 10)}  ${its}`,
+      `${r.label.padEnd(32)} ${pad(r.rps.toFixed(0), 8)} ${pad(r.p50, 5)} ${pad(r.p90, 5)} ${pad(r.p99, 5)} ${pad(r.max, 6)} ${pad(r.non200, 8)} ${pad(r.errors + r.timeouts, 7)} ${pad(r.serverCpu === null ? '?' : `${r.serverCpu.toFixed(0)}%`, 10)} ${pad(r.loopUsPerRequest === null ? '?' : r.loopUsPerRequest.toFixed(0), 11)} ${pad(`${r.loadgenCpu.toFixed(0)}%`, 11)} ${pad(r.othersCpu === null ? '?' : `${r.othersCpu.toFixed(0)}%`, 10)}  ${its}`,
     );
   }
 }
@@ -284,21 +304,27 @@ async function main() {
   try {
     const port = await freePort();
     const env = { ...process.env };
-    for (const name of ['REDIS_URL', 'CAIRN_API_KEYS', 'CAIRN_HOST']) delete env[name];
+    delete env.REDIS_URL;
     Object.assign(env, {
       CAIRN_DATA_DIR: dataDir,
       CAIRN_PORT: String(port),
-      CAIRN_RATE_LIMIT_PER_MINUTE: '0',
+      CAIRN_HOST: '127.0.0.1',
+      CAIRN_API_KEYS: `bench:${hashApiKey(API_KEY)}`,
+      CAIRN_RATE_LIMIT_PER_MINUTE: env.CAIRN_RATE_LIMIT_PER_MINUTE ?? '10000000',
       CAIRN_SHUTDOWN_GRACE_SECONDS: env.CAIRN_SHUTDOWN_GRACE_SECONDS ?? '5',
-      LOG_LEVEL: 'warn',
     });
+    if (PIN) {
+      const own = spawnSync('taskset', ['-cp', '1', String(process.pid)], { encoding: 'utf8' });
+      if (own.status !== 0) throw new Error(`--pin: taskset failed (${own.stderr.trim() || own.error?.message}); is util-linux installed?`);
+    }
     const config = loadConfig(env); // a bad pass-through setting fails here, with its name
     const cores = os.availableParallelism();
     const threads = config.CAIRN_COMPUTE_THREADS || Math.max(1, cores - 1);
     const load = () => os.loadavg().map((v) => v.toFixed(2)).join(' ');
     console.log(`status-poll: ${CONNECTIONS} connections (closed loop), ${WARMUP} s warm-up + ${SECONDS} s per target; target p99(GET /v1/jobs/<id>) ≤ ${TARGET_P99_MS} ms while a selection runs`);
     console.log(`machine: ${cores} cores (${os.cpus()[0]?.model ?? '?'}), Node ${process.version}, load average at start ${load()}`);
-    console.log(`server: node dist/cli/main.js serve (embedded queue), compute threads ${threads}${config.CAIRN_COMPUTE_THREADS ? ' (CAIRN_COMPUTE_THREADS)' : ' (default: cores − 1)'}, UV_THREADPOOL_SIZE ${env.UV_THREADPOOL_SIZE ?? '4 (default)'}`);
+    console.log(`server: node dist/cli/main.js serve (embedded queue), compute threads ${threads}${config.CAIRN_COMPUTE_THREADS ? ' (CAIRN_COMPUTE_THREADS)' : ' (default: cores − 1)'}, UV_THREADPOOL_SIZE ${env.UV_THREADPOOL_SIZE ?? '4 (default)'}, NODE_OPTIONS ${env.NODE_OPTIONS ? `"${env.NODE_OPTIONS}"` : '(none)'}`);
+    console.log(`server config: API key auth on, rate limit ${config.CAIRN_RATE_LIMIT_PER_MINUTE ? `${config.CAIRN_RATE_LIMIT_PER_MINUTE}/min` : 'off'}, LOG_LEVEL ${config.LOG_LEVEL}; ${PIN ? 'pinned: server on core 0, load generator on core 1 (--pin)' : 'not pinned (the scheduler places all three: load generator, event loop, selection thread)'}`);
 
     // 1. Server.
     server = startChild(env);

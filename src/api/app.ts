@@ -20,6 +20,7 @@ import { modelRoutes } from './model-routes.js';
 import { reviewRoutes } from './review-routes.js';
 import { reportRoutes } from './report-routes.js';
 import { opsRoutes } from './ops-routes.js';
+import { RequestLog } from './request-log.js';
 import { EventStreams } from './event-streams.js';
 import { TaskReader } from './task-reader.js';
 
@@ -77,10 +78,13 @@ ${Object.entries(ERROR_CATALOGUE)
 export async function buildApp(deps: AppDeps): Promise<App> {
   const { config, keys, log } = deps;
   let requestCount = 0;
+  // Unique per process start; the per-request part is a counter only.
+  const reqIdPrefix = `req-${Date.now().toString(36)}-`;
   const app = Fastify({
     loggerInstance: log as FastifyBaseLogger,
-    genReqId: () => `req-${Date.now().toString(36)}-${(++requestCount).toString(36)}`,
+    genReqId: () => reqIdPrefix + (++requestCount).toString(36),
     bodyLimit: 1024 * 1024,
+    logController: new RequestLog(),
     // Requests that arrive while closing get the catalogued 503 below, not fastify's own body.
     return503OnClosing: false,
   }).withTypeProvider<ZodTypeProvider>();
@@ -115,12 +119,21 @@ export async function buildApp(deps: AppDeps): Promise<App> {
   app.addHook('preClose', async () => {
     lifecycle.closing = true;
   });
-  app.addHook('onRequest', async (req) => {
-    if (lifecycle.closing) throw new CairnError('SERVICE_SHUTTING_DOWN');
-    if (req.url.startsWith('/v1/')) req.tenant = keys.tenant(req.headers.authorization);
+  // Callback hooks, not async ones: they run on every request, and a promise each is measurable
+  // in scripts/bench/status-poll.mjs.
+  app.addHook('onRequest', (req, _reply, done) => {
+    try {
+      if (lifecycle.closing) throw new CairnError('SERVICE_SHUTTING_DOWN');
+      if (req.url.startsWith('/v1/')) req.tenant = keys.tenant(req.headers.authorization);
+    } catch (err) {
+      done(err as Error);
+      return;
+    }
+    done();
   });
-  app.addHook('onResponse', async (req, reply) => {
+  app.addHook('onResponse', (req, reply, done) => {
     deps.metrics.httpSeconds.observe({ method: req.method, route: req.routeOptions.url ?? 'unknown', status: String(reply.statusCode) }, reply.elapsedTime / 1000);
+    done();
   });
 
   app.setNotFoundHandler((req, reply) => {

@@ -13,7 +13,7 @@ import { isFinal } from '../jobs/task.js';
 import type { App, RouteDeps } from './app.js';
 import type { EventStreams } from './event-streams.js';
 import { fingerprintOf } from './idempotency.js';
-import { datasetView, jobView } from './resources.js';
+import { datasetBody, datasetView, JSON_TYPE, jobView } from './resources.js';
 import { datasetResource, errorBody, idParams, listQuery, uploadFields } from './schemas.js';
 import { newId } from './task-ids.js';
 
@@ -113,8 +113,8 @@ export function datasetRoutes(app: App, deps: RouteDeps, streams: EventStreams):
     return { datasets };
   });
 
-  app.get('/v1/datasets/:id', { schema: { summary: 'Get a dataset', tags: ['datasets'], params: idParams, response: { 200: datasetResource, ...errors } } }, async (req) => {
-    return datasetView(reader, ref(req.tenant, req.params.id));
+  app.get('/v1/datasets/:id', { schema: { summary: 'Get a dataset', tags: ['datasets'], params: idParams, response: { 200: datasetResource, ...errors } } }, async (req, reply) => {
+    return reply.type(JSON_TYPE).send((await datasetBody(reader, ref(req.tenant, req.params.id))) as never);
   });
 
   app.get(

@@ -13,7 +13,7 @@ import type { App, RouteDeps } from './app.js';
 import { idempotencyKey } from './dataset-routes.js';
 import type { EventStreams } from './event-streams.js';
 import { fingerprintOf } from './idempotency.js';
-import { datasetView, jobView } from './resources.js';
+import { datasetView, JSON_TYPE, jobBody, jobView } from './resources.js';
 import { assignmentsQuery, contactSheetQuery, createJobBody, errorBody, idParams, jobListQuery, jobResource } from './schemas.js';
 import { newId } from './task-ids.js';
 import { EmbeddingCache, embeddingCacheKey } from '../jobs/embedding-cache.js';
@@ -132,9 +132,10 @@ export function jobRoutes(app: App, deps: RouteDeps, streams: EventStreams): voi
     return { jobs };
   });
 
-  app.get('/v1/jobs/:id', { schema: { summary: 'Get a job (status and progress)', tags: ['jobs'], params: idParams, response: { 200: jobResource, ...errors } } }, async (req) => {
-    // No separate existence check: reading the spec answers JOB_NOT_FOUND for a missing job.
-    return jobView(reader, ref(req.tenant, req.params.id));
+  app.get('/v1/jobs/:id', { schema: { summary: 'Get a job (status and progress)', tags: ['jobs'], params: idParams, response: { 200: jobResource, ...errors } } }, async (req, reply) => {
+    // No separate existence check: reading the spec answers JOB_NOT_FOUND for a missing job. The
+    // body comes serialized from the reader's cache (what dashboards poll), so it skips the serializer.
+    return reply.type(JSON_TYPE).send((await jobBody(reader, ref(req.tenant, req.params.id))) as never);
   });
 
   app.get(
