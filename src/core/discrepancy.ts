@@ -123,6 +123,66 @@ export async function constantTerm(
 }
 
 /**
+ * The sampled constant with the representatives as a control variate (own derivation; the standard
+ * regression control variate, e.g. Glasserman 2003 §4.1). Its error comes mostly from which rows the
+ * sample holds: the U-statistic U moves with (2/m) Σᵢ (c(yᵢ) − θ), c(y) = E h(|y − Y|). The
+ * representatives give a function whose mean over all N rows is known exactly,
+ * ĉ(y) = Σⱼ wⱼ h(|y − pⱼ|), with E_Y ĉ = Σⱼ wⱼ cⱼ (the full-data data terms): so
+ *   U* = U − β (mean over the sample of ĉ − Σⱼ wⱼ cⱼ)
+ * is unbiased for any fixed β, and with good representatives ĉ ≈ c, so most of the sample's error
+ * cancels. β = 2 Cov(r, ĉ)/Var(ĉ) over the sample rows, r the sample row means (their projection);
+ * standard error 2·sd(r − β/2 · ĉ)/√m, the first-order term as in constantTerm. `points` are the
+ * representatives (count × d) in the selection space, `cFull` their data terms over all rows.
+ * An exact constant is returned as it is.
+ */
+export async function controlledConstant(
+  constant: ConstantTermWithRows,
+  backend: ComputeBackend,
+  kernel: KernelSpec,
+  points: Float32Array,
+  count: number,
+  weights: ArrayLike<number>,
+  cFull: ArrayLike<number>,
+  n: number,
+  blockRows = 4096,
+): Promise<ConstantTerm> {
+  const { exact, sampleRows, value, standardError } = constant;
+  if (exact) return { value, exact, sampleRows, standardError };
+  const m = constant.reference.rows;
+  const d = constant.reference.cols;
+  const chat = new Float64Array(m);
+  for (const [start, rowsInBlock] of blockRanges(m, blockRows)) {
+    const K = await backend.kernelMatrix(constant.reference.read(start, rowsInBlock), rowsInBlock, points, count, d, kernel);
+    for (let i = 0; i < rowsInBlock; i++) {
+      let s = 0;
+      for (let j = 0; j < count; j++) s += weights[j] * K[i * count + j];
+      chat[start + i] = s;
+    }
+  }
+  const r = constant.rowMeans;
+  let meanR = 0;
+  let meanC = 0;
+  for (let i = 0; i < m; i++) {
+    meanR += r[i] / m;
+    meanC += chat[i] / m;
+  }
+  let cov = 0;
+  let varC = 0;
+  for (let i = 0; i < m; i++) {
+    cov += (r[i] - meanR) * (chat[i] - meanC);
+    varC += (chat[i] - meanC) ** 2;
+  }
+  const beta = varC > 0 ? (2 * cov) / varC : 0;
+  let fullC = 0;
+  for (let j = 0; j < count; j++) fullC += weights[j] * cFull[j];
+  // value = ((N − 1)·U + h(0)) / N (see constantTerm): the correction to U, scaled the same way.
+  const corrected = value - ((n - 1) / n) * beta * (meanC - fullC);
+  let residual = 0;
+  for (let i = 0; i < m; i++) residual += (r[i] - meanR - (beta / 2) * (chat[i] - meanC)) ** 2 / (m - 1);
+  return { value: corrected, exact, sampleRows, standardError: 2 * Math.sqrt(residual / m) };
+}
+
+/**
  * The sample's m²·d/2 kernel work is held near 1e11 flops (under a second here): the standard
  * error falls as 1/√m, so narrow data gets a larger sample for the same time.
  */

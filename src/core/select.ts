@@ -5,7 +5,7 @@ import type { DescentCheckpoint } from './checkpoint.js';
 import { coverageStats, type LabelCodes } from './coverage.js';
 import { runDescent, initialDescentState, selfTerm, type DescentAnchors } from './descent.js';
 import { checkGivenItems, type FixedItems, type PreviousSelection } from './given-items.js';
-import { constantTerm, dataTermMeans, discrepancyFromTerms } from './discrepancy.js';
+import { constantTerm, controlledConstant, dataTermMeans, discrepancyFromTerms } from './discrepancy.js';
 import { autoIterations, parseSelectOptions, type SelectOptionsInput } from './options.js';
 import { greedyPrefixOrder, prefixCurve } from './ordering.js';
 import { Rng } from './random.js';
@@ -334,14 +334,19 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
     weights = sol.weights;
     weightSolver = { converged: sol.converged, gap: sol.gap, iterations: sol.iterations };
   }
-  const finalD2 = discrepancyFromTerms(c, K, weights, constant.value);
+  // Above exactConstantMaxRows the constant was estimated from a row sample; the final
+  // representatives sharpen that estimate (a control variate) for every value reported from here.
+  const reported = await controlledConstant(constant, backend, kernel, reps, total, weights, c, n);
+  // Stage values computed earlier with the first estimate move by the same amount.
+  const shift = constant.value - reported.value;
+  const finalD2 = discrepancyFromTerms(c, K, weights, reported.value);
   let coverageGain: SelectionResult['coverageGain'] = null;
   if (f > 0) {
     const cF = c.slice(k);
     const KF = new Float64Array(f * f);
     for (let i = 0; i < f; i++) for (let j = 0; j < f; j++) KF[i * f + j] = K[(k + i) * total + k + j];
     const wF = o.weights === 'optimized' ? solveWeights(cF, KF).weights : new Float64Array(f).fill(1 / f);
-    const fixedOnly = nonNegative(discrepancyFromTerms(cF, KF, wF, constant.value));
+    const fixedOnly = nonNegative(discrepancyFromTerms(cF, KF, wF, reported.value));
     coverageGain = { fixedOnly, withNew: nonNegative(finalD2), gain: Math.max(0, fixedOnly - nonNegative(finalD2)) };
   }
   endPhase('coverage');
@@ -358,11 +363,11 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
     const pts = rows.gather(idx);
     const cr = await dataTermMeans(scoring, backend, kernel, pts, k);
     const { K: Kr } = await selfTerm(backend, kernel, withFixed(pts), uniform, total, d, false);
-    draws.push(prefixCurve(fixedScoringC ? concat(cr, fixedScoringC) : cr, Kr, constant.value, fixedIdx));
+    draws.push(prefixCurve(fixedScoringC ? concat(cr, fixedScoringC) : cr, Kr, reported.value, fixedIdx));
   }
   const randomFinal = draws.map((curve) => curve[k - 1]);
   const randomMedian = median(randomFinal);
-  const { order, curve } = greedyPrefixOrder(c, K, constant.value, fixedIdx);
+  const { order, curve } = greedyPrefixOrder(c, K, reported.value, fixedIdx);
   endPhase('baseline');
 
   /** Weight and coverage figures of point j (a new representative or a fixed item). */
@@ -421,16 +426,16 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
     },
     discrepancy: {
       value: nonNegative(finalD2),
-      constant: { value: constant.value, exact: constant.exact, sampleRows: constant.sampleRows, standardError: constant.standardError },
+      constant: { value: reported.value, exact: reported.exact, sampleRows: reported.sampleRows, standardError: reported.standardError },
       random: { median: nonNegative(randomMedian), draws: randomFinal.map(nonNegative) },
       // No ratio when random k-subsets already represent the data exactly (e.g. all rows equal).
       ratioToRandom: randomMedian > 0 ? nonNegative(finalD2) / randomMedian : null,
       prefix: curve.map((value, m) => ({ m: m + 1, value: nonNegative(value), random: nonNegative(median(draws.map((dr) => dr[m]))) })),
       stages: {
-        seeded: nonNegative(seededD2),
-        descent: nonNegative(descentD2),
-        snapped: nonNegative(snappedD2),
-        refined: nonNegative(refinedD2),
+        seeded: nonNegative(seededD2 + shift),
+        descent: nonNegative(descentD2 + shift),
+        snapped: nonNegative(snappedD2 + shift),
+        refined: nonNegative(refinedD2 + shift),
         final: nonNegative(finalD2),
       },
     },
