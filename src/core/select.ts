@@ -336,9 +336,8 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   }
   // Above exactConstantMaxRows the constant was estimated from a row sample; the final
   // representatives sharpen that estimate (a control variate) for every value reported from here.
+  // (The stage values keep the first estimate: each is D² against the sample its terms came from.)
   const reported = await controlledConstant(constant, backend, kernel, reps, total, weights, c, n);
-  // Stage values computed earlier with the first estimate move by the same amount.
-  const shift = constant.value - reported.value;
   const finalD2 = discrepancyFromTerms(c, K, weights, reported.value);
   let coverageGain: SelectionResult['coverageGain'] = null;
   if (f > 0) {
@@ -432,10 +431,10 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
       ratioToRandom: randomMedian > 0 ? nonNegative(finalD2) / randomMedian : null,
       prefix: curve.map((value, m) => ({ m: m + 1, value: nonNegative(value), random: nonNegative(median(draws.map((dr) => dr[m]))) })),
       stages: {
-        seeded: nonNegative(seededD2 + shift),
-        descent: nonNegative(descentD2 + shift),
-        snapped: nonNegative(snappedD2 + shift),
-        refined: nonNegative(refinedD2 + shift),
+        seeded: nonNegative(seededD2),
+        descent: nonNegative(descentD2),
+        snapped: nonNegative(snappedD2),
+        refined: nonNegative(refinedD2),
         final: nonNegative(finalD2),
       },
     },
