@@ -6,6 +6,12 @@ import { prepareRows } from '../compute/prepared-rows.js';
 const MAX_CACHED_VALUES = 2e7;
 
 /**
+ * Columns per kernel call: on the ONNX backend (2 cores, pool 31k × 128) 256 columns cost 16 calls
+ * of 16 about 40 ms but 0.1–0.5 s in one call, and 16 columns cost about what one does.
+ */
+const COLUMNS_PER_CALL = 16;
+
+/**
  * Columns K(pool, u) = [h(|pool_v − pool_u|)]_v of the candidates' kernel matrix, computed on
  * demand (several at once in one kernel call) and cached: the greedy start and the swap searches
  * from every start ask for many of the same columns.
@@ -32,22 +38,31 @@ export class KernelColumns {
 
   async get(items: ArrayLike<number>): Promise<Float64Array[]> {
     const wanted = Array.from(new Set(Array.from(items)));
-    let missing = wanted.filter((u) => !this.cache.has(u));
-    if (missing.length) {
-      // Full: start over, computing every wanted column (those cached too, which the clear drops).
-      if ((this.cache.size + missing.length) * this.size > Math.min(MAX_CACHED_VALUES, this.maxCachedValues)) {
-        this.cache.clear();
-        missing = wanted;
-      }
-      const points = new Float32Array(missing.length * this.d);
-      const e = this.d + 2;
-      missing.forEach((u, j) => points.set(this.prepared.subarray(u * e, u * e + this.d), j * this.d));
-      const block = await this.backend.kernelMatrixPrepared(this.prepared, this.size, points, missing.length, this.d, this.kernel);
-      missing.forEach((u, j) => {
-        const col = new Float64Array(this.size);
-        for (let v = 0; v < this.size; v++) col[v] = block[v * missing.length + j];
+    const keep = new Set(wanted);
+    const missing = wanted.filter((u) => !this.cache.has(u));
+    const capacity = Math.max(wanted.length, Math.floor(Math.min(MAX_CACHED_VALUES, this.maxCachedValues) / Math.max(1, this.size)));
+    // Full: the least recently used columns go (a Map iterates in insertion order; hits re-insert).
+    for (const u of wanted) {
+      const col = this.cache.get(u);
+      if (col) {
+        this.cache.delete(u);
         this.cache.set(u, col);
-      });
+      }
+    }
+    for (const u of this.cache.keys()) {
+      if (this.cache.size + missing.length <= capacity) break;
+      if (!keep.has(u)) this.cache.delete(u);
+    }
+    const e = this.d + 2;
+    for (let from = 0; from < missing.length; from += COLUMNS_PER_CALL) {
+      const part = missing.slice(from, from + COLUMNS_PER_CALL);
+      const m = part.length;
+      const points = new Float32Array(m * this.d);
+      part.forEach((u, j) => points.set(this.prepared.subarray(u * e, u * e + this.d), j * this.d));
+      const block = await this.backend.kernelMatrixPrepared(this.prepared, this.size, points, m, this.d, this.kernel);
+      const cols = part.map(() => new Float64Array(this.size));
+      for (let v = 0; v < this.size; v++) for (let j = 0; j < m; j++) cols[j][v] = block[v * m + j];
+      part.forEach((u, j) => this.cache.set(u, cols[j]));
     }
     return Array.from(items, (u) => this.cache.get(u)!);
   }
