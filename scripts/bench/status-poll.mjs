@@ -28,7 +28,8 @@
 //      also on failure (the child is killed on any error).
 //   --pin runs the server on core 0 and this process (the load generator) on core 1 (taskset), so
 //   the two do not preempt each other; the selection's thread then shares core 0 with the event
-//   loop at its lower priority. Not the default: the default rows are the unpinned machine.
+//   loop at its lower priority (and runs slower: see its iterations per second). Not the default:
+//   the default rows are the unpinned machine.
 //   --idle also measures both targets before the job is created (no selection running), which
 //   separates what the running selection costs from what the route costs: the status row then
 //   reads a job that was cancelled at once (the same two files; a completed job would read a third).
@@ -313,10 +314,6 @@ async function main() {
       CAIRN_RATE_LIMIT_PER_MINUTE: env.CAIRN_RATE_LIMIT_PER_MINUTE ?? '10000000',
       CAIRN_SHUTDOWN_GRACE_SECONDS: env.CAIRN_SHUTDOWN_GRACE_SECONDS ?? '5',
     });
-    if (PIN) {
-      const own = spawnSync('taskset', ['-cp', '1', String(process.pid)], { encoding: 'utf8' });
-      if (own.status !== 0) throw new Error(`--pin: taskset failed (${own.stderr.trim() || own.error?.message}); is util-linux installed?`);
-    }
     const config = loadConfig(env); // a bad pass-through setting fails here, with its name
     const cores = os.availableParallelism();
     const threads = config.CAIRN_COMPUTE_THREADS || Math.max(1, cores - 1);
@@ -325,6 +322,12 @@ async function main() {
     console.log(`machine: ${cores} cores (${os.cpus()[0]?.model ?? '?'}), Node ${process.version}, load average at start ${load()}`);
     console.log(`server: node dist/cli/main.js serve (embedded queue), compute threads ${threads}${config.CAIRN_COMPUTE_THREADS ? ' (CAIRN_COMPUTE_THREADS)' : ' (default: cores − 1)'}, UV_THREADPOOL_SIZE ${env.UV_THREADPOOL_SIZE ?? '4 (default)'}, NODE_OPTIONS ${env.NODE_OPTIONS ? `"${env.NODE_OPTIONS}"` : '(none)'}`);
     console.log(`server config: API key auth on, rate limit ${config.CAIRN_RATE_LIMIT_PER_MINUTE ? `${config.CAIRN_RATE_LIMIT_PER_MINUTE}/min` : 'off'}, LOG_LEVEL ${config.LOG_LEVEL}; ${PIN ? 'pinned: server on core 0, load generator on core 1 (--pin)' : 'not pinned (the scheduler places all three: load generator, event loop, selection thread)'}`);
+
+    // After the machine line: availableParallelism() counts the cores this process may use.
+    if (PIN) {
+      const own = spawnSync('taskset', ['-cp', '1', String(process.pid)], { encoding: 'utf8' });
+      if (own.status !== 0) throw new Error(`--pin: taskset failed (${own.stderr.trim() || own.error?.message}); is util-linux installed?`);
+    }
 
     // 1. Server.
     server = startChild(env);
