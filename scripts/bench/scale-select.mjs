@@ -1,6 +1,10 @@
 #!/usr/bin/env node
 // cairn vs a MiniBatchKMeans peer at scale: 1,000,000 × 128 float32 rows from a 64-Gaussian mixture.
-// Usage: node scripts/bench/scale-select.mjs [--rows 1000000] [--k 256] [--seed 0] [--sample 20000] [--no-build]
+// Usage: node scripts/bench/scale-select.mjs [--rows 1000000] [--k 256] [--seed 0] [--sample 20000] [--budget-mb 256] [--no-build]
+//
+// cairn runs twice: with its default memory budget (the rows held in memory), and with
+// --memory-budget (default 256 MiB; 0 skips that run), where the rows stay in their file and are
+// read in blocks. Targets of the second run: peak RSS < 600 MB, D² within 5% of the first.
 //
 // As in mnist-select.mjs, both tools run as whole child processes on the same .npy (wall time from
 // spawn to exit, peak RSS), and both picks are scored here with the same code: cairn's D² functions
@@ -19,6 +23,7 @@ const ROOT = resolve(dirname(fileURLToPath(import.meta.url)), '..', '..');
 const PEER = join(ROOT, 'scripts', 'bench', 'scale-peer.py');
 const PYTHON = '/usr/bin/python3';
 const TARGETS = { wall: 1.0, rss: 0.5, d2: 1.0 };
+const BUDGET_TARGETS = { rssMb: 600, d2Change: 0.05 };
 
 const argv = process.argv.slice(2);
 const flag = (name) => argv.includes(name);
@@ -32,6 +37,7 @@ const COMPONENTS = MIXTURE_COMPONENTS;
 const K = option('--k', 256);
 const SEED = option('--seed', 0);
 const SAMPLE = Math.min(option('--sample', 20_000), N);
+const BUDGET_MB = option('--budget-mb', 256);
 
 
 // --- build (as mnist-select.mjs) ---------------------------------------------------------------
@@ -71,6 +77,15 @@ const mc = await measureProcess(process.execPath, [CLI, 'select', npyPath, '--k'
 if (mc.code !== 0) throw new Error(`cairn exited with ${mc.code}:\n${mc.stderr}`);
 const cairn = JSON.parse(await readFile(cairnOut, 'utf8'));
 console.log(`cairn: wall ${mc.wallSeconds.toFixed(2)} s, peak RSS ${mc.peakRssMb.toFixed(0)} MB | before: ${loadCairn}`);
+let budgeted = null;
+if (BUDGET_MB > 0) {
+  const out = join(work, 'cairn-budget.json');
+  const loadBudget = uptime();
+  const m = await measureProcess(process.execPath, [CLI, 'select', npyPath, '--k', String(K), '--out', out, '--quiet', '--memory-budget', String(BUDGET_MB)], { cwd: ROOT });
+  if (m.code !== 0) throw new Error(`cairn --memory-budget exited with ${m.code}:\n${m.stderr}`);
+  budgeted = { m, result: JSON.parse(await readFile(out, 'utf8')) };
+  console.log(`cairn --memory-budget ${BUDGET_MB}: wall ${m.wallSeconds.toFixed(2)} s, peak RSS ${m.peakRssMb.toFixed(0)} MB | before: ${loadBudget}`);
+}
 const loadPeer = uptime();
 const mp = await measureProcess(PYTHON, [PEER, npyPath, String(K), String(SEED), peerOut], { cwd: ROOT, env: peerEnv });
 if (mp.code !== 0) throw new Error(`peer exited with ${mp.code}:\n${mp.stderr}`);
@@ -98,6 +113,7 @@ async function d2(indices, weights) {
 }
 const d2Cairn = await d2(cairn.representatives.map((r) => r.index), cairn.representatives.map((r) => r.weight));
 const d2Peer = await d2(peer.indices, peer.weights);
+const d2Budget = budgeted ? await d2(budgeted.result.representatives.map((r) => r.index), budgeted.result.representatives.map((r) => r.weight)) : NaN;
 const randomIdx = Array.from(new Rng(SEED + 2).sample(N, K));
 const d2Random = await d2(randomIdx, new Array(K).fill(1 / K));
 await backend.dispose();
@@ -108,6 +124,7 @@ const row = (...c) => console.log(`  ${String(c[0]).padEnd(8)} ${String(c[1]).pa
 console.log(`scoring: energy kernel a = ${kernel.a.toPrecision(6)} (cairn's; scale s = ${Number(cairn.scale).toPrecision(6)}), D² against the ${SAMPLE}-row sample (constant exact: ${constant.exact})`);
 row('tool', 'wall s', 'peak RSS MB', 'D² (sample)', 'distinct');
 row('cairn', f(mc.wallSeconds, 2), f(mc.peakRssMb, 0), f(d2Cairn, 5), distinct(cairn.representatives.map((r) => r.index)));
+if (budgeted) row(`cairn ${BUDGET_MB}M`, f(budgeted.m.wallSeconds, 2), f(budgeted.m.peakRssMb, 0), f(d2Budget, 5), distinct(budgeted.result.representatives.map((r) => r.index)));
 row('peer', f(mp.wallSeconds, 2), f(mp.peakRssMb, 0), f(d2Peer, 5), distinct(peer.indices));
 row('random', '', '', f(d2Random, 5), K);
 console.log('');
@@ -118,6 +135,13 @@ const ratios = [
 ];
 console.log('ratios cairn/peer:');
 for (const [name, v, t] of ratios) console.log(`  ${name.padEnd(5)} ${f(v, 3).padStart(8)}  (target ≤ ${t.toFixed(1)})  ${v <= t ? 'met' : 'MISSED'}`);
+if (budgeted) {
+  const change = Math.abs(d2Budget - d2Cairn) / d2Cairn;
+  console.log(`memory budget ${BUDGET_MB} MiB vs held in memory:`);
+  console.log(`  peak RSS ${f(budgeted.m.peakRssMb, 0).padStart(8)} MB  (target < ${BUDGET_TARGETS.rssMb})  ${budgeted.m.peakRssMb < BUDGET_TARGETS.rssMb ? 'met' : 'MISSED'}`);
+  console.log(`  D² change ${f(100 * change, 2).padStart(7)} %   (target ≤ ${100 * BUDGET_TARGETS.d2Change})  ${change <= BUDGET_TARGETS.d2Change ? 'met' : 'MISSED'}; own full-data D² ${f(budgeted.result.discrepancy?.value, 6)} vs ${f(cairn.discrepancy?.value, 6)}`);
+  console.log(`  wall ${f(budgeted.m.wallSeconds / mc.wallSeconds, 3)}× the in-memory run; trace.seconds: ${Object.entries(budgeted.result.trace?.seconds ?? {}).map(([p, v]) => `${p} ${v.toFixed(2)}`).join(', ')}`);
+}
 console.log('');
 const secs = cairn.trace?.seconds ?? {};
 const inSelect = Object.values(secs).reduce((s, v) => s + v, 0);
