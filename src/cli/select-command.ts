@@ -8,10 +8,11 @@ import type { SelectOptionsInput } from '../core/options.js';
 import { select } from '../core/select.js';
 import { ingestFile, openDataset } from '../data/dataset-store.js';
 import { closeRows, type FileRows } from '../data/file-rows.js';
+import { itemLookup } from '../data/stored-dataset.js';
 import { labelCodes } from '../data/label-codes.js';
 import { defaultReadOptions, type ReadOptionOverrides } from '../data/read-options.js';
 import type { DatasetFormat } from '../data/reader.js';
-import { resultDocument, type ResultDocument } from '../jobs/result-document.js';
+import { resultDocument, rowsNamed, type ResultDocument } from '../jobs/result-document.js';
 import { ProgressBar } from './progress-bar.js';
 
 export interface SelectCommandInput {
@@ -47,14 +48,16 @@ export async function runSelectCommand(input: SelectCommandInput): Promise<CliRe
     });
     const dataset = openDataset(storeDir, 'input');
     const budget = input.memoryBudgetBytes ?? Math.floor(totalmem() / 2);
-    const items = await dataset.readItems();
-    const labels = meta.hasLabels ? labelCodes(items.labels) : null;
+    // All ids and labels only for labels; otherwise just the ids of the rows the result names.
+    const items = meta.hasLabels ? await dataset.readItems() : null;
+    const labels = items ? labelCodes(items.labels) : null;
     const bar = new ProgressBar(process.stderr, input.progress);
     rows = dataset.rowSource(budget);
     // Rows read from their file mean memory is tight: no ORT arenas holding each graph's peak buffers.
     backend = await createBackend(input.backend, { memoryArena: rows.resident });
     const result = await select(rows, input.options, { backend, labels, sourceIsScratch: true, memoryBudgetBytes: budget, onProgress: (p) => bar.update(p) });
-    const out: CliResult = resultDocument(result, items, meta, { source: basename(input.file) });
+    const lookup = items ? itemLookup(items) : await dataset.readItemsAt(rowsNamed(result));
+    const out: CliResult = resultDocument(result, lookup, meta, { source: basename(input.file) });
     const text = JSON.stringify(out, null, 2) + '\n';
     if (input.out) {
       await writeFile(input.out, text);

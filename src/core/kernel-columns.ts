@@ -36,6 +36,11 @@ export class KernelColumns {
     this.prepared = prepareRows(pool, size, d);
   }
 
+  /** Drops every cached column (the refinement is over; later phases need the memory). */
+  clear(): void {
+    this.cache.clear();
+  }
+
   async get(items: ArrayLike<number>): Promise<Float64Array[]> {
     const wanted = Array.from(new Set(Array.from(items)));
     const keep = new Set(wanted);

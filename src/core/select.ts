@@ -132,6 +132,9 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
 
   // Rows for the stage values, the weight solves and the random baselines (all rows when small).
   const scoring = n <= o.refineSampleRows ? rows : new DenseRows(rows.gather(rng.sample(n, o.refineSampleRows)), o.refineSampleRows, d);
+  // The samples are held whatever the budget; they count against it before anything optional.
+  if (scoring !== rows) budgetLeft -= o.refineSampleRows * d * 4;
+  if (!constant.exact) budgetLeft -= constant.reference.rows * d * 4;
   const stageD2 = async (points: Float32Array, w: Float64Array): Promise<number> => {
     const c = await dataTermMeans(scoring, backend, kernel, points, total);
     const { K } = await selfTerm(backend, kernel, points, w, total, d, false);
@@ -268,9 +271,11 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   const fixedSlots = Int32Array.from({ length: f }, (_, i) => rowSlots + i);
   const poolC = f > 0 ? concat(Float64Array.from(poolCValues), await dataTermMeans(constant.reference, backend, kernel, fixedPoints, f)) : Float64Array.from(poolCValues);
   const slotOf = new Map(poolRows.map((r, i) => [r, i]));
-  // The descent's copy is gone by now: its share of the budget goes to the cached columns, with room
-  // for 2(k + f) columns whatever the budget (the current set's and as many candidates').
-  const columnValues = Math.max(budgetLeft / 8, 2 * total * (rowSlots + f));
+  // The descent's copy is gone by now: its share of the budget goes to the cached columns.
+  // Also held: the candidates' prepared rows, and the k columns of the current set that each swap
+  // search keeps (in refine.ts). The cache holds at least one set's columns whatever the budget.
+  const poolEntries = rowSlots + f;
+  const columnValues = Math.max((budgetLeft - poolEntries * (d + 2) * 4 - total * poolEntries * 8) / 8, total * poolEntries);
   const columns = new KernelColumns(backend, kernel, withFixed(rows.gather(poolRows)), rowSlots + f, d, columnValues);
   let bonus: Float64Array | undefined;
   if (threshold > 0 && kp > 0) {
@@ -317,6 +322,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   const chosen = Int32Array.from(refined.slots.subarray(0, k), (u) => poolRows[u]);
   const snappedD2 = fromDescent.before - constant.value;
   const refinedD2 = refined.after - constant.value;
+  columns.clear();
   endPhase('refine');
   checkAbort();
 

@@ -44,6 +44,22 @@ export interface StoredDataset {
   rowSource(budgetBytes?: number): DenseRows | FileRows;
   /** Ids and labels in row order. */
   readItems(): Promise<{ ids: string[]; labels: (string | null)[] }>;
+  /**
+   * Ids and labels of the given rows only: one pass over items.jsonl that parses just those lines,
+   * so a large dataset's ids are not all held (a result needs the representatives' and a few more).
+   */
+  readItemsAt(rows: Iterable<number>): Promise<ItemLookup>;
+}
+
+/** Ids and labels by row number. */
+export interface ItemLookup {
+  id(row: number): string;
+  label(row: number): string | null;
+}
+
+/** An ItemLookup over all rows' ids and labels (readItems). */
+export function itemLookup(items: { ids: string[]; labels: (string | null)[] }): ItemLookup {
+  return { id: (row) => items.ids[row], label: (row) => items.labels[row] ?? null };
 }
 
 /** Largest single read: readSync takes at most 2 GiB − 1 bytes at once. */
@@ -143,6 +159,35 @@ export function openDataset(storeDir: string, datasetId: string): StoredDataset 
         throw new CairnError('DATASET_STORE_CORRUPT', `${ITEMS_FILE} has ${ids.length} items, expected ${rows}.`, { datasetId });
       }
       return { ids, labels };
+    },
+    async readItemsAt(wantedRows) {
+      const wanted = new Set(wantedRows);
+      const found = new Map<number, { id: string; label: string | null }>();
+      let row = 0;
+      let rest = '';
+      try {
+        for await (const chunk of createReadStream(join(dir, ITEMS_FILE), { encoding: 'utf8', highWaterMark: 1 << 20 })) {
+          const text = rest + (chunk as string);
+          let start = 0;
+          for (let end = text.indexOf('\n', start); end >= 0; end = text.indexOf('\n', start)) {
+            if (wanted.has(row)) found.set(row, JSON.parse(text.slice(start, end)) as { id: string; label: string | null });
+            row++;
+            start = end + 1;
+          }
+          rest = text.slice(start);
+        }
+      } catch (err) {
+        if ((err as NodeJS.ErrnoException).code === 'ENOENT') throw new CairnError('DATASET_NOT_FOUND', undefined, { datasetId });
+        throw new CairnError('DATASET_STORE_CORRUPT', `${ITEMS_FILE} cannot be read.`, { datasetId }, { cause: err });
+      }
+      if (rest.length > 0) row++;
+      if (row !== rows) throw new CairnError('DATASET_STORE_CORRUPT', `${ITEMS_FILE} has ${row} items, expected ${rows}.`, { datasetId });
+      const item = (r: number) => {
+        const it = found.get(r);
+        if (!it) throw new RangeError(`row ${r} was not read`);
+        return it;
+      };
+      return { id: (r) => item(r).id, label: (r) => item(r).label ?? null };
     },
   };
 }

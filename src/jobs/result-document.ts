@@ -1,5 +1,5 @@
 import type { SelectionResult } from '../core/result.js';
-import type { StoredDatasetMeta } from '../data/stored-dataset.js';
+import type { ItemLookup, StoredDatasetMeta } from '../data/stored-dataset.js';
 
 /** A selection result as users receive it (CLI output, the API's result): the engine's result with item ids and the dataset's description. */
 export type ResultDocument = Omit<SelectionResult, 'representatives' | 'coverage' | 'fixed'> & {
@@ -16,9 +16,14 @@ export type ResultDocument = Omit<SelectionResult, 'representatives' | 'coverage
   embedding?: { model: string; modelSha256: string; normalize: boolean; dims: number; computedRowsInThisTask: number; seconds: number };
 };
 
+/** The rows a result document names (representatives, worst-covered items): the ids it needs. */
+export function rowsNamed(result: SelectionResult): number[] {
+  return [...result.representatives.map((r) => r.index), ...result.coverage.worstCovered.map((w) => w.index)];
+}
+
 export function resultDocument(
   result: SelectionResult,
-  items: { ids: string[]; labels: (string | null)[] },
+  items: ItemLookup,
   meta: StoredDatasetMeta,
   dataset: { id?: string; source: string },
   fixed: { ids: string[]; datasetId: string } | null = null,
@@ -36,10 +41,10 @@ export function resultDocument(
       droppedNonFinite: meta.droppedNonFinite,
       skippedImages: meta.skippedImages,
     },
-    representatives: result.representatives.map((r) => ({ ...r, id: items.ids[r.index], label: items.labels[r.index] ?? null })),
+    representatives: result.representatives.map((r) => ({ ...r, id: items.id(r.index), label: items.label(r.index) })),
     coverage: {
       ...result.coverage,
-      worstCovered: result.coverage.worstCovered.map((w) => ({ ...w, id: items.ids[w.index] })),
+      worstCovered: result.coverage.worstCovered.map((w) => ({ ...w, id: items.id(w.index) })),
     },
   };
 }

@@ -68,8 +68,8 @@ describe('FileRows', () => {
   });
 });
 
-describe('StoredDataset.rowSource', () => {
-  it('gives the stored matrix in memory or from the file, and coded errors for a missing or damaged file', async () => {
+describe('StoredDataset.rowSource and readItemsAt', () => {
+  it('gives the stored matrix in memory or from the file, ids of chosen rows, and coded errors for missing or damaged files', async () => {
     const { data } = matrixFile('unused.f32', 300, 4, 3);
     const npy = join(dir, 'points.npy');
     writeFileSync(npy, npyBytes(data, [300, 4]));
@@ -86,6 +86,16 @@ describe('StoredDataset.rowSource', () => {
     } finally {
       closeRows(file);
     }
+    // Ids of some rows only, the same as in the full list.
+    const all = await dataset.readItems();
+    const some = await dataset.readItemsAt([299, 0, 17, 17]);
+    for (const r of [0, 17, 299]) {
+      expect(some.id(r)).toBe(all.ids[r]);
+      expect(some.label(r)).toBe(all.labels[r]);
+    }
+    expect(() => some.id(5)).toThrow(RangeError);
+    writeFileSync(join(dataset.dir, 'items.jsonl'), '{"id":"a","label":null}\n');
+    await expect(dataset.readItemsAt([0])).rejects.toMatchObject({ code: 'DATASET_STORE_CORRUPT' });
     truncateSync(join(dataset.dir, 'matrix.f32'), 100);
     expect(() => dataset.rowSource(0)).toThrow(expect.objectContaining({ code: 'DATASET_STORE_CORRUPT' }));
     rmSync(join(dataset.dir, 'matrix.f32'));
