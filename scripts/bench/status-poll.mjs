@@ -57,16 +57,15 @@
 //     rows are not representative: run again on a quiet machine.
 //   * The descent iteration counts show that the selection really ran during the load, and how
 //     much the load slowed it (iterations per second per row).
-import { spawn, spawnSync } from 'node:child_process';
+import { spawnSync } from 'node:child_process';
 import { existsSync, openAsBlob, readFileSync } from 'node:fs';
 import { mkdtemp, rm } from 'node:fs/promises';
-import net from 'node:net';
 import os from 'node:os';
 import { join } from 'node:path';
-import { setTimeout as sleep } from 'node:timers/promises';
 import { fileURLToPath } from 'node:url';
 import { snapshotDist } from './lib/machine.mjs';
 import { writeNpyFloat32 } from './lib/npy.mjs';
+import { api as apiCall, freePort, hostBusySeconds, startServe, stopServe, waitUntil } from './lib/service.mjs';
 import { prng } from '../demo-data.mjs'; // mulberry32
 
 const root = fileURLToPath(new URL('../../', import.meta.url));
@@ -117,76 +116,11 @@ function clusteredMatrix(rows, cols, seed) {
 // ---------------------------------------------------------------------------------------------
 // The server child process.
 
-function freePort() {
-  return new Promise((resolve, reject) => {
-    const srv = net.createServer();
-    srv.unref();
-    srv.on('error', reject);
-    srv.listen(0, '127.0.0.1', () => {
-      const { port } = srv.address();
-      srv.close(() => resolve(port));
-    });
-  });
-}
-
-function startChild(env) {
-  const [cmd, args] = PIN ? ['taskset', ['-c', '0', process.execPath, cli, 'serve']] : [process.execPath, [cli, 'serve']];
-  const child = spawn(cmd, args, { cwd: root, env, stdio: ['ignore', 'pipe', 'pipe'] });
-  const tail = [];
-  const keep = (b) => {
-    for (const line of String(b).split('\n').filter(Boolean)) {
-      tail.push(line);
-      if (tail.length > 40) tail.shift();
-    }
-  };
-  child.stdout.on('data', keep);
-  child.stderr.on('data', keep);
-  const exited = new Promise((resolve) => child.on('exit', (code, signal) => resolve({ code, signal })));
-  child.on('error', (err) => keep(`spawn error: ${err.message}`));
-  return { child, exited, tail, alive: () => child.exitCode === null && child.signalCode === null };
-}
-
-/** SIGTERM, then SIGKILL if it has not exited within `ms`. */
-async function stopChild(server, ms) {
-  if (!server || !server.alive()) return server ? await server.exited : null;
-  server.child.kill('SIGTERM');
-  const timer = setTimeout(() => server.alive() && server.child.kill('SIGKILL'), ms);
-  const how = await server.exited;
-  clearTimeout(timer);
-  return how;
-}
-
 // ---------------------------------------------------------------------------------------------
 // HTTP helpers.
 
-async function api(base, method, path, body) {
-  const init = { method, headers: { ...AUTH } };
-  if (body instanceof FormData) init.body = body;
-  else if (body !== undefined) {
-    init.body = JSON.stringify(body);
-    init.headers['content-type'] = 'application/json';
-  }
-  const res = await fetch(base + path, init);
-  const text = await res.text();
-  let json = null;
-  try {
-    json = JSON.parse(text);
-  } catch {
-    // not JSON
-  }
-  return { status: res.status, body: json, text };
-}
-
-async function waitUntil(what, timeoutMs, check, server) {
-  const started = Date.now();
-  for (;;) {
-    if (server && !server.alive()) throw new Error(`the server exited while waiting for ${what}`);
-    const done = await check();
-    if (done) return done;
-    if (Date.now() - started > timeoutMs) throw new Error(`timed out after ${timeoutMs / 1000} s waiting for ${what}`);
-    await sleep(100);
-  }
-}
+/** The run's /v1 calls, with its API key. */
+const api = (base, method, path, body) => apiCall(base, method, path, body, AUTH);
 
 async function jobState(base, jobId) {
   const r = await api(base, 'GET', `/v1/jobs/${jobId}`);
@@ -215,16 +149,6 @@ function processCpuSeconds(pid, tid) {
 }
 const CLOCK_TICKS = 100; // USER_HZ: 100 on every Linux architecture Node supports
 
-/** Busy CPU seconds of the whole machine so far (all cores; idle and iowait excluded), or null. */
-function hostBusySeconds() {
-  try {
-    const f = readFileSync('/proc/stat', 'utf8').split('\n')[0].trim().split(/\s+/).slice(1).map(Number);
-    const total = f.slice(0, 8).reduce((a, b) => a + b, 0); // user … steal (guest time is inside user)
-    return (total - f[3] - f[4]) / CLOCK_TICKS;
-  } catch {
-    return null;
-  }
-}
 let serverPid = 0;
 
 /** Warm-up (unrecorded), then the recorded run; with a job, its state before and after. */
@@ -330,7 +254,7 @@ async function main() {
     }
 
     // 1. Server.
-    server = startChild(env);
+    server = startServe(cli, root, env, PIN ? ['taskset', '-c', '0'] : []);
     serverPid = server.child.pid;
     base = `http://127.0.0.1:${port}`;
     await waitUntil('/readyz', 30_000, async () => {
@@ -422,7 +346,7 @@ async function main() {
       }, server).catch((err) => ({ status: `unknown (${err.message})` }));
       console.log(`job ${final.status} after the cancel`);
     }
-    const how = await stopChild(server, 30_000);
+    const how = await stopServe(server, 30_000);
     console.log(`server stopped (${how.signal ? `signal ${how.signal}` : `exit code ${how.code}`})`);
     if (!stillRunning || bad.length) process.exitCode = 1;
   } catch (err) {
