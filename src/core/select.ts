@@ -29,11 +29,11 @@ export interface SelectContext {
   /** The caller owns the rows and does not need them afterwards: raw and standardize spaces transform them in place. */
   sourceIsScratch?: boolean;
   /**
-   * Bytes the selection may hold in copies of the rows: a source held in memory (DenseRows)
-   * counts first, then the transformed rows, the descent's shuffled copy and the refinement's
-   * kernel-column cache take what is left; what does not fit is read from the source in blocks
-   * (see RowSource.resident). Samples (scoring rows, the constant term's reference rows, swap
-   * candidates) are small and bounded by the options, not by this. Default: no limit.
+   * Bytes the selection may hold in copies of the rows: a source held in memory (DenseRows) and
+   * the samples (scoring rows, the constant term's reference rows, swap candidates: bounded by the
+   * options, held whatever the budget) count first; the transformed rows, the descent's shuffled
+   * copy and the refinement's kernel-column cache take what is left. What does not fit is read
+   * from the source in blocks (see RowSource.resident). Default: no limit.
    */
   memoryBudgetBytes?: number;
   /** Warm start: k starting points in the selection space (row-major), instead of k-means++ seeds. */

@@ -72,21 +72,4 @@ export class EmbeddingCache {
     await writeFileAtomic(join(this.dir, 'meta.json'), JSON.stringify(meta, null, 2) + '\n');
     await rm(join(this.dir, 'shards'), { recursive: true, force: true });
   }
-
-  async load(meta: EmbeddingMeta): Promise<Float32Array> {
-    const out = new Float32Array(meta.rows * meta.dim);
-    const fh = await open(this.matrixPath, 'r');
-    try {
-      const bytes = new Uint8Array(out.buffer);
-      let done = 0;
-      while (done < bytes.length) {
-        const { bytesRead } = await fh.read(bytes, done, Math.min(1 << 30, bytes.length - done), done);
-        if (bytesRead === 0) throw new Error('embedding matrix ended early');
-        done += bytesRead;
-      }
-    } finally {
-      await fh.close();
-    }
-    return out;
-  }
 }
