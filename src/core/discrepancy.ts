@@ -144,13 +144,14 @@ export async function controlledConstant(
   weights: ArrayLike<number>,
   cFull: ArrayLike<number>,
   n: number,
-  blockRows = 4096,
 ): Promise<ConstantTerm> {
   const { exact, sampleRows, value, standardError } = constant;
   if (exact) return { value, exact, sampleRows, standardError };
   const m = constant.reference.rows;
   const d = constant.reference.cols;
   const chat = new Float64Array(m);
+  // Kernel blocks of at most 2²² values (32 MB of float64), whatever k is.
+  const blockRows = Math.max(1, Math.min(4096, Math.floor(2 ** 22 / count)));
   for (const [start, rowsInBlock] of blockRanges(m, blockRows)) {
     const K = await backend.kernelMatrix(constant.reference.read(start, rowsInBlock), rowsInBlock, points, count, d, kernel);
     for (let i = 0; i < rowsInBlock; i++) {
