@@ -1,4 +1,4 @@
-import { closeSync, createReadStream, fstatSync, openSync, readFileSync, readSync } from 'node:fs';
+import { createReadStream, readFileSync } from 'node:fs';
 import { join } from 'node:path';
 import { createInterface } from 'node:readline';
 import { CairnError, requireArg } from '../errors.js';
@@ -62,12 +62,9 @@ export function itemLookup(items: { ids: string[]; labels: (string | null)[] }):
   return { id: (row) => items.ids[row], label: (row) => items.labels[row] ?? null };
 }
 
-/** Largest single read: readSync takes at most 2 GiB − 1 bytes at once. */
-const READ_CHUNK = 1024 ** 3;
-
 /**
  * Opens a stored dataset. Reads are positional and open the matrix file per call, so a
- * StoredDataset holds no file descriptor and needs no closing.
+ * StoredDataset holds no file descriptor and needs no closing (a rowSource read from the file does).
  */
 export function openDataset(storeDir: string, datasetId: string): StoredDataset {
   const dir = join(storeDir, datasetId);
@@ -84,31 +81,23 @@ export function openDataset(storeDir: string, datasetId: string): StoredDataset 
   const { rows, cols } = meta;
   const matrixPath = join(dir, MATRIX_FILE);
 
-  function readInto(target: Float32Array, startRow: number): void {
-    const bytes = new Uint8Array(target.buffer, target.byteOffset, target.byteLength);
-    const fd = openMatrix();
+  /** The matrix file read on demand (FileRows checks its size), with coded errors. */
+  function matrixFile(): FileRows {
     try {
-      const size = fstatSync(fd).size;
-      if (size !== rows * cols * 4) {
-        throw new CairnError('DATASET_STORE_CORRUPT', `${MATRIX_FILE} has ${size} bytes, expected ${rows * cols * 4}.`, { datasetId });
-      }
-      let done = 0;
-      while (done < bytes.length) {
-        const n = readSync(fd, bytes, done, Math.min(READ_CHUNK, bytes.length - done), startRow * cols * 4 + done);
-        if (n === 0) throw new CairnError('DATASET_STORE_CORRUPT', `${MATRIX_FILE} ended early.`, { datasetId });
-        done += n;
-      }
-    } finally {
-      closeSync(fd);
+      return new FileRows(matrixPath, rows, cols);
+    } catch (err) {
+      if ((err as NodeJS.ErrnoException).code === 'ENOENT') throw new CairnError('DATASET_NOT_FOUND', undefined, { datasetId });
+      if (err instanceof RangeError) throw new CairnError('DATASET_STORE_CORRUPT', err.message, { datasetId });
+      throw err;
     }
   }
 
-  function openMatrix(): number {
+  function read(start: number, count: number): Float32Array {
+    const file = matrixFile();
     try {
-      return openSync(matrixPath, 'r');
-    } catch (err) {
-      if ((err as NodeJS.ErrnoException).code === 'ENOENT') throw new CairnError('DATASET_NOT_FOUND', undefined, { datasetId });
-      throw err;
+      return file.read(start, count);
+    } finally {
+      file.close();
     }
   }
 
@@ -118,24 +107,13 @@ export function openDataset(storeDir: string, datasetId: string): StoredDataset 
     readRows(start, count) {
       requireArg(Number.isInteger(start) && start >= 0 && start <= rows, 'start', `an integer in 0..${rows}`, start);
       requireArg(Number.isInteger(count) && count >= 0 && start + count <= rows, 'count', `an integer in 0..${rows - start}`, count);
-      const out = new Float32Array(count * cols);
-      if (count > 0) readInto(out, start);
-      return out;
+      return read(start, count);
     },
     loadMatrix() {
-      const out = new Float32Array(rows * cols);
-      readInto(out, 0);
-      return out;
+      return read(0, rows);
     },
     rowSource(budgetBytes = Infinity) {
-      if (rows * cols * 4 <= budgetBytes) return new DenseRows(this.loadMatrix(), rows, cols);
-      try {
-        return new FileRows(matrixPath, rows, cols);
-      } catch (err) {
-        if ((err as NodeJS.ErrnoException).code === 'ENOENT') throw new CairnError('DATASET_NOT_FOUND', undefined, { datasetId });
-        if (err instanceof RangeError) throw new CairnError('DATASET_STORE_CORRUPT', err.message, { datasetId });
-        throw err;
-      }
+      return rows * cols * 4 <= budgetBytes ? new DenseRows(read(0, rows), rows, cols) : matrixFile();
     },
     async readItems() {
       const ids: string[] = [];
