@@ -17,6 +17,11 @@ export const configSchema = z.object({
   CAIRN_DATA_DIR: z.string().min(1).default('./cairn-data').describe('Folder for uploads, stored datasets, jobs and results; shared by the API and every worker. Default ./cairn-data.'),
   CAIRN_MODELS_DIR: z.string().min(1).default('./models').describe('Folder of embedding models: each an .onnx file with a .json description beside it (see README, Embedding models). Default ./models.'),
   CAIRN_EMBED_SHARD_ROWS: int(16, 1_000_000).default(2048).describe('Images per embedding shard: a job that needs an embedding splits it into shards that any worker can run. Default 2048.'),
+  CAIRN_PASS_SHARD_ROWS: int(0, 2 ** 31)
+    .default(262_144)
+    .describe(
+      "Rows per shard of a selection's full passes (snapping, coverage): a pass over more rows is split into shards that other workers (BullMQ, or the embedded queue's other threads when CAIRN_WORKER_CONCURRENCY ≥ 2) compute alongside the job; results are identical either way. Rounded down to whole blocks of 16,384 rows; 0 turns shards off. Default 262144.",
+    ),
   REDIS_URL: z.string().regex(/^rediss?:\/\/\S+$/, 'must be a redis:// or rediss:// URL').optional().describe('Redis for the BullMQ queues (redis://host:port/db). Unset: the embedded queue runs jobs in-process on worker threads, with job state on disk.'),
   CAIRN_QUEUE_PREFIX: z.string().regex(/^[A-Za-z0-9:_-]{1,64}$/).default('cairn').describe('Key prefix of the BullMQ queues in Redis. Default cairn.'),
   CAIRN_API_KEYS: z.string().default('').describe("API keys as comma-separated 'tenant:sha256-hex-of-key' entries (`cairn keygen` prints one). Empty (default): auth is off and the API binds to 127.0.0.1."),

@@ -84,6 +84,7 @@ export async function startServer(config: Config, log: Logger = pino({ level: co
       checkpointEveryMs: config.CAIRN_CHECKPOINT_SECONDS * 1000,
       memoryBudgetBytes: memoryBudgetBytes(config),
       modelsDir: config.CAIRN_MODELS_DIR,
+      passShardRows: config.CAIRN_PASS_SHARD_ROWS,
       log,
     });
     await embedded.start();

@@ -1,6 +1,7 @@
 import type { ComputeBackend } from '../compute/backend.js';
 import type { KernelSpec } from '../compute/kernel-spec.js';
-import { blockRanges, type RowSource } from './rows.js';
+import { localPasses, type AssignPass, type RowPasses } from './row-passes.js';
+import type { RowSource } from './rows.js';
 
 export interface LabelCodes {
   /** Per row: index into `names`, or −1 for no label. */
@@ -37,10 +38,12 @@ export interface CoverageStats {
 export interface CoverageOptions {
   radii: number[];
   worstCount: number;
-  blockRows?: number;
 }
 
-/** One streamed pass assigning every row to its nearest representative. Distances are Euclidean, in the selection space. */
+/**
+ * One pass assigning every row to its nearest representative (through `passes`: here, or split
+ * across workers), then the statistics. Distances are Euclidean, in the selection space.
+ */
 export async function coverageStats(
   rows: RowSource,
   backend: ComputeBackend,
@@ -49,18 +52,15 @@ export async function coverageStats(
   k: number,
   labels: LabelCodes | null,
   o: CoverageOptions,
+  passes: RowPasses = localPasses,
 ): Promise<CoverageStats> {
-  const n = rows.rows;
-  const blockRows = o.blockRows ?? 16_384;
-  const assignment = new Int32Array(n);
-  const distance = new Float32Array(n);
-  const hSum = new Float64Array(k);
-  for (const [start, count] of blockRanges(n, blockRows)) {
-    const a = await backend.assign(rows.read(start, count), count, reps, k, rows.cols, kernel);
-    assignment.set(a.index, start);
-    for (let i = 0; i < count; i++) distance[start + i] = Math.sqrt(Math.max(a.sqDist[i], 0));
-    for (let j = 0; j < k; j++) hSum[j] += a.hSum![j];
-  }
+  return coverageFromPass(await passes.assign(rows, backend, kernel, reps, k), k, labels, o);
+}
+
+/** The statistics of an assignment pass over all rows. */
+export function coverageFromPass(pass: AssignPass, k: number, labels: LabelCodes | null, o: CoverageOptions): CoverageStats {
+  const { assignment, distance, hSum } = pass;
+  const n = assignment.length;
 
   // Group distances by representative (counting sort) for per-representative quantiles.
   const counts = new Int32Array(k);

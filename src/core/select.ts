@@ -16,8 +16,9 @@ import type { FixedRepresentative, SelectionResult, SelectProgress } from './res
 import { DenseRows, range, type RowSource } from './rows.js';
 import { medianDistance } from './scale.js';
 import { seedKMeansPlusPlus } from './seeding.js';
-import { assignDistinct, nearestCandidates, type CandidateLists } from './snap.js';
-import { parseSpace, prepareSpace } from './space.js';
+import { localPasses, type RowPasses } from './row-passes.js';
+import { assignDistinct, type CandidateLists } from './snap.js';
+import { parseSpace, prepareSpace, type SpaceRecipe } from './space.js';
 import { solveWeights } from './weights.js';
 
 export interface SelectContext {
@@ -63,6 +64,12 @@ export interface SelectContext {
    * coverage pass; a row nearest to fixed item i gets −(i + 1).
    */
   onAssignments?: (rank: Int32Array, distance: Float32Array) => Promise<void> | void;
+  /**
+   * Where the full passes (snapping candidates, coverage) run, given how the selection space is
+   * made from the source rows: e.g. split into row ranges that other workers take. Every choice
+   * returns what localPasses returns (the default).
+   */
+  passes?: (space: SpaceRecipe) => RowPasses;
 }
 
 /** Approximate share of the work per phase, for the overall progress fraction. */
@@ -112,6 +119,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   budgetLeft -= space.heldBytes;
   const rows = space.rows;
   const d = rows.cols;
+  const passes = ctx.passes ? ctx.passes(space.recipe) : localPasses;
   const fixedPoints = f > 0 ? await space.transform(given.fixed.vectors, f) : new Float32Array(0);
   const prev = given.previous;
   // The first k earlier representatives (they are in rank order), in the selection space.
@@ -168,7 +176,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   if (kp > 0 && threshold > 0) {
     // ρⱼ: distance from the earlier position to its snapCandidates-th nearest row, the ball within
     // which snapping can still return the earlier item (at least 1% of s, for duplicate rows).
-    const near = await nearestCandidates(rows, backend, prevPoints, kp, o.snapCandidates);
+    const near = await passes.nearest(rows, backend, prevPoints, kp, o.snapCandidates);
     const radius = Float64Array.from({ length: kp }, (_, j) => Math.max(Math.sqrt(Math.max(near.sqDist[j * near.m + near.m - 1], 0)), 0.01 * s));
     anchors = { points: prevPoints, active: new Uint8Array(kp).fill(1), coefficient: threshold, radius };
   }
@@ -233,7 +241,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   endPhase('descent');
 
   progress('snap');
-  const cand = await nearestCandidates(rows, backend, state.points.subarray(0, k * d), k, o.snapCandidates);
+  const cand = await passes.nearest(rows, backend, state.points.subarray(0, k * d), k, o.snapCandidates);
   const preferred = anchors ? Int32Array.from({ length: k }, (_, j) => (j < kp ? prevRows[j] : -1)) : undefined;
   const snapped = assignDistinct(cand, k, n, rng, given.fixedRows, preferred);
   endPhase('snap');
@@ -330,7 +338,7 @@ export async function select(source: RowSource, input: SelectOptionsInput, ctx: 
   const reps = withFixed(rows.gather(chosen));
   const s2 = [0.25, 0.5, 0.75, 1].map((x) => x * s);
   const radii = o.radius ? [...s2, o.radius].sort((a, b) => a - b) : s2;
-  const cov = await coverageStats(rows, backend, kernel, reps, total, ctx.labels ?? null, { radii, worstCount: o.worstCount });
+  const cov = await coverageStats(rows, backend, kernel, reps, total, ctx.labels ?? null, { radii, worstCount: o.worstCount }, passes);
   const { K } = await selfTerm(backend, kernel, reps, uniform, total, d, false);
   const c = cov.dataTermMeans;
   let weights: Float64Array = uniform;

@@ -1,45 +1,16 @@
 import type { ComputeBackend } from '../compute/backend.js';
 import type { Rng } from './random.js';
-import { blockRanges, type RowSource } from './rows.js';
+import { localPasses, type CandidateLists } from './row-passes.js';
+import type { RowSource } from './rows.js';
 
-export interface CandidateLists {
-  /** k×M row indices, nearest first. */
-  index: Int32Array;
-  sqDist: Float32Array;
-  m: number;
-}
+export type { CandidateLists } from './row-passes.js';
 
 /**
  * The M rows nearest to each point, exact, streamed over the whole dataset in blocks: each block's
  * top-M (computed inside the backend) is merged into the running top-M of every point.
  */
-export async function nearestCandidates(
-  rows: RowSource,
-  backend: ComputeBackend,
-  points: Float32Array,
-  k: number,
-  m: number,
-  blockRows = 16_384,
-): Promise<CandidateLists> {
-  const M = Math.min(m, rows.rows);
-  const d = rows.cols;
-  const index = new Int32Array(k * M).fill(-1);
-  const sqDist = new Float32Array(k * M).fill(Infinity);
-  for (const [start, count] of blockRanges(rows.rows, blockRows)) {
-    const mb = Math.min(M, count);
-    const near = await backend.nearestRows(rows.read(start, count), count, points, k, d, mb);
-    for (let j = 0; j < k; j++) {
-      const merged: Array<[number, number]> = [];
-      for (let r = 0; r < M; r++) if (index[j * M + r] >= 0) merged.push([sqDist[j * M + r], index[j * M + r]]);
-      for (let r = 0; r < mb; r++) merged.push([near.sqDist[j * mb + r], start + near.index[j * mb + r]]);
-      merged.sort((a, b) => a[0] - b[0] || a[1] - b[1]);
-      for (let r = 0; r < M; r++) {
-        sqDist[j * M + r] = r < merged.length ? merged[r][0] : Infinity;
-        index[j * M + r] = r < merged.length ? merged[r][1] : -1;
-      }
-    }
-  }
-  return { index, sqDist, m: M };
+export function nearestCandidates(rows: RowSource, backend: ComputeBackend, points: Float32Array, k: number, m: number): Promise<CandidateLists> {
+  return localPasses.nearest(rows, backend, points, k, m);
 }
 
 /**

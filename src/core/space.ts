@@ -6,9 +6,24 @@ import { AffineRows, blockRanges, DenseRows, type RowSource } from './rows.js';
 /** The geometry a selection runs in. Distances in results are measured in this space. */
 export type SpaceSpec = { kind: 'raw' } | { kind: 'standardize' } | { kind: 'pca'; components: number };
 
+/**
+ * How a row of the source becomes a row of the selection space: y = (x − shift) ⊙ scale (no scale:
+ * centring only), then, with PCA, y·axes. spaceBlockReader applies it to blocks of the source
+ * with the same arithmetic prepareSpace used, so another process rebuilds the rows bit for bit.
+ */
+export interface SpaceRecipe {
+  shift: Float32Array;
+  scale: Float32Array | null;
+  /** PCA: d×M row-major; null otherwise. */
+  axes: Float32Array | null;
+  /** Columns of the selection space. */
+  cols: number;
+}
+
 export interface PreparedSpace {
   rows: RowSource;
   spec: SpaceSpec;
+  recipe: SpaceRecipe;
   /** PCA only: share of the total variance each kept component explains. */
   explainedVarianceRatio?: number[];
   /** PCA only: the principal axes, d×M row-major (column j is axis j, unit length), for the centred rows. */
@@ -105,10 +120,10 @@ export async function prepareSpace(
     // one copy of the data fewer.
     if (options.inPlace && source instanceof DenseRows) {
       transformInPlace(source.data, source.cols, shift, scale);
-      return { rows: source, spec, transform: affine, heldBytes: 0 };
+      return { rows: source, spec, recipe: { shift, scale, axes: null, cols: source.cols }, transform: affine, heldBytes: 0 };
     }
     const rows = materialise(new AffineRows(source, shift, scale), options.maxCopyBytes ?? Infinity);
-    return { rows, spec, transform: affine, heldBytes: rows instanceof DenseRows ? rows.data.byteLength : 0 };
+    return { rows, spec, recipe: { shift, scale, axes: null, cols: source.cols }, transform: affine, heldBytes: rows instanceof DenseRows ? rows.data.byteLength : 0 };
   }
   const centred = new AffineRows(source, shift, null);
   const d = source.cols;
@@ -136,16 +151,31 @@ export async function prepareSpace(
   let totalVariance = 0;
   for (const s of std) totalVariance += s * s * source.rows;
   const projected = new Float32Array(source.rows * M);
-  for (const [start, count] of blockRanges(source.rows, BLOCK_ROWS)) {
-    projected.set(await backend.gemm(centred.read(start, count), count, d, axes, d, M, false, false), start * M);
-  }
+  const recipe: SpaceRecipe = { shift, scale: null, axes, cols: M };
+  const project = spaceBlockReader(source, recipe, backend);
+  for (const [start, count] of blockRanges(source.rows, BLOCK_ROWS)) projected.set(await project(start, count), start * M);
   return {
     rows: new DenseRows(projected, source.rows, M),
     spec,
+    recipe,
     explainedVarianceRatio: order.map((i) => (totalVariance > 0 ? Math.max(values[i], 0) / totalVariance : 0)),
     axes,
     heldBytes: projected.byteLength,
     transform: async (vectors, count) => (count === 0 ? new Float32Array(0) : backend.gemm(await affine(vectors), count, d, axes, d, M, false, false)),
+  };
+}
+
+/**
+ * Blocks of the selection space read from the source rows through a recipe. With PCA, blocks
+ * must be the ones prepareSpace projected (starting on multiples of 16,384 rows, the last one
+ * ending at the last row): a matrix product can round differently for another block shape.
+ */
+export function spaceBlockReader(source: RowSource, recipe: SpaceRecipe, backend: ComputeBackend): (start: number, count: number) => Promise<Float32Array> {
+  const affine = new AffineRows(source, recipe.shift, recipe.scale);
+  const d = source.cols;
+  return async (start, count) => {
+    const block = affine.read(start, count);
+    return recipe.axes ? backend.gemm(block, count, d, recipe.axes, d, recipe.cols, false, false) : block;
   };
 }
 

@@ -8,7 +8,7 @@ import type { TaskStore } from './task-store.js';
 import { TASK_KINDS, taskKey, type TaskKind, type TaskRef, type TaskState } from './task.js';
 
 /** BullMQ queue of each task kind, under the configured key prefix (`<prefix>:<name>:…` in Redis). */
-export const QUEUE_NAMES: Record<TaskKind, string> = { dataset: 'ingest', job: 'select', embed: 'embed' };
+export const QUEUE_NAMES: Record<TaskKind, string> = { dataset: 'ingest', job: 'select', embed: 'embed', pass: 'pass' };
 
 /** What a worker publishes with job.updateProgress: every state its runner writes. */
 export interface ProgressMessage {

@@ -1,10 +1,10 @@
-import { UnrecoverableError, WaitingError, type SandboxedJob } from 'bullmq';
+import { Queue, UnrecoverableError, WaitingError, type SandboxedJob } from 'bullmq';
 import pino from 'pino';
-import type { ProgressMessage } from './bullmq-queue.js';
+import { jobIdOf, QUEUE_NAMES, type ProgressMessage } from './bullmq-queue.js';
 import { RETRY_ERROR_NAME, SANDBOX_SETTINGS_ENV, type SandboxSettings } from './bullmq-worker.js';
 import { runAttempt } from './task-runner.js';
 import { TaskStore } from './task-store.js';
-import type { TaskError, TaskRef } from './task.js';
+import { taskKey, type TaskError, type TaskRef } from './task.js';
 
 /**
  * The processor file of the BullMQ workers: BullMQ runs it in a child process of the worker (a
@@ -45,6 +45,8 @@ export default async function processTask(job: SandboxedJob<TaskRef>, token?: st
     checkpointEveryMs: settings.checkpointEveryMs,
     memoryBudgetBytes: settings.memoryBudgetBytes ?? undefined,
     modelsDir: settings.modelsDir,
+    passShardRows: settings.passShardRows,
+    spawn,
     // Published for the API's QueueEvents; a lost update is harmless (state.json is the truth).
     onState: (state) => void job.updateProgress({ ref, state } satisfies ProgressMessage).catch(() => undefined),
     log,
@@ -62,6 +64,26 @@ export default async function processTask(job: SandboxedJob<TaskRef>, token?: st
       await job.moveToWait(token);
       throw new WaitingError();
   }
+}
+
+let passQueue: Queue | null = null;
+
+/**
+ * Adds a selection's pass shards to the 'pass' queue, for any worker. One attempt each: a shard
+ * nobody finishes is computed by its selection itself. Finished shard jobs leave Redis after an hour.
+ */
+async function spawn(refs: TaskRef[]): Promise<void> {
+  if (!passQueue) {
+    passQueue = new Queue(QUEUE_NAMES.pass, { connection: { url: settings.redisUrl, maxRetriesPerRequest: 1 }, prefix: settings.prefix });
+    passQueue.on('error', (err) => log.warn({ err }, 'pass queue connection error'));
+  }
+  const q = passQueue;
+  await q.addBulk(
+    refs.map((ref) => {
+      if (ref.kind !== 'pass') throw new Error(`a selection spawns pass shards only, not ${ref.kind} tasks`);
+      return { name: taskKey(ref), data: ref, opts: { jobId: jobIdOf(ref), attempts: 1, removeOnComplete: { age: 3600 }, removeOnFail: { age: 3600 } } };
+    }),
+  );
 }
 
 function readSettings(): SandboxSettings {

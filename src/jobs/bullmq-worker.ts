@@ -21,6 +21,7 @@ export function bullWorkerOptions(config: Config, log: Logger): BullWorkerOption
     checkpointEveryMs: config.CAIRN_CHECKPOINT_SECONDS * 1000,
     memoryBudgetBytes: memoryBudgetBytes(config),
     modelsDir: config.CAIRN_MODELS_DIR,
+    passShardRows: config.CAIRN_PASS_SHARD_ROWS,
     stalledMs: config.CAIRN_STALLED_SECONDS * 1000,
     log,
   };
@@ -40,6 +41,8 @@ export interface BullWorkerOptions {
   memoryBudgetBytes?: number;
   /** Folder of the embedding models. Default ./models. */
   modelsDir?: string;
+  /** Rows per shard of a selection's full passes; 0: no shards. Default 0. */
+  passShardRows?: number;
   /** A task whose worker stopped renewing its lock this long ago goes to another worker. */
   stalledMs: number;
   log: Logger;
@@ -54,6 +57,10 @@ export interface SandboxSettings {
   /** null: no limit (JSON has no Infinity). */
   memoryBudgetBytes: number | null;
   modelsDir?: string;
+  passShardRows: number;
+  /** Where the sandbox adds the shard tasks a selection spawns. */
+  redisUrl: string;
+  prefix: string;
   logLevel: string;
 }
 
@@ -74,7 +81,7 @@ const STOP_MS = 15_000;
 export async function startBullWorker(o: BullWorkerOptions): Promise<{ close(graceMs: number): Promise<void> }> {
   const store = new TaskStore(o.dataDir);
   const entry = entryFile(import.meta.url, 'bullmq-sandbox');
-  const settings: SandboxSettings = { dataDir: o.dataDir, maxAttempts: o.maxAttempts, computeThreads: o.computeThreads, checkpointEveryMs: o.checkpointEveryMs, memoryBudgetBytes: o.memoryBudgetBytes ?? null, modelsDir: o.modelsDir, logLevel: o.log.level };
+  const settings: SandboxSettings = { dataDir: o.dataDir, maxAttempts: o.maxAttempts, computeThreads: o.computeThreads, checkpointEveryMs: o.checkpointEveryMs, memoryBudgetBytes: o.memoryBudgetBytes ?? null, modelsDir: o.modelsDir, passShardRows: o.passShardRows ?? 0, redisUrl: o.redisUrl, prefix: o.prefix, logLevel: o.log.level };
   // A dead worker's job moves on at the first stalled check that finds its lock expired and the job
   // marked by an earlier check: at most lockDuration + stalledInterval = stalledMs after the death.
   // The lock is renewed every quarter of its life, so only an event-loop pause of over ~3/4 of it

@@ -21,6 +21,8 @@ export interface EmbeddedQueueOptions {
   memoryBudgetBytes?: number;
   /** Folder of the embedding models. Default ./models. */
   modelsDir?: string;
+  /** Rows per shard of a selection's full passes, run on the other threads (with concurrency ≥ 2); 0: no shards. */
+  passShardRows?: number;
   /** First retry delay; doubles per attempt. Default 1000 ms. */
   backoffMs?: number;
   log: Logger;
@@ -183,6 +185,8 @@ export class EmbeddedQueue implements JobQueue {
       checkpointEveryMs: this.o.checkpointEveryMs,
       memoryBudgetBytes: this.o.memoryBudgetBytes,
       modelsDir: this.o.modelsDir,
+      passShardRows: this.o.passShardRows ?? 0,
+      canSpawn: this.o.concurrency > 1,
       logLevel: this.o.log.level,
     };
     const worker = entry.execArgv.length
@@ -193,6 +197,7 @@ export class EmbeddedQueue implements JobQueue {
     const done = new Promise<void>((resolve) => {
       worker.on('message', (m: TaskThreadMessage) => {
         if (m.type === 'state') this.events.emit('state', { ref, state: m.state });
+        else if (m.type === 'spawn') for (const r of m.refs) void this.enqueue(r);
         else outcome = m.outcome;
       });
       worker.on('error', (err) => this.o.log.error({ task: ref, err }, 'task thread failed'));

@@ -15,6 +15,10 @@ export interface ProcessorContext {
   memoryBudgetBytes?: number;
   /** Folder of the embedding models (a model's .onnx and .json description). */
   modelsDir: string;
+  /** Rows per shard of a selection's full passes (see pass-shards.ts); 0: no shards. */
+  passShardRows: number;
+  /** Hands tasks to the queue, for other workers to run (absent where no other worker would). */
+  spawn?: (refs: TaskRef[]) => Promise<void>;
 }
 
 /** Runs one task to completion, writing its outputs into the task folder; throws on failure. */

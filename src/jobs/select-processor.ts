@@ -1,10 +1,12 @@
 import { existsSync } from 'node:fs';
+import { rm } from 'node:fs/promises';
 import { join } from 'node:path';
 import { projectSample } from '../report/report-data.js';
 import { createBackend } from '../compute/create-backend.js';
 import { decodeCheckpoint, encodeCheckpoint } from '../core/checkpoint.js';
 import { parseSelectOptions } from '../core/options.js';
 import type { RowSource } from '../core/rows.js';
+import type { SpaceRecipe } from '../core/space.js';
 import { select } from '../core/select.js';
 import { openDataset } from '../data/dataset-store.js';
 import { itemLookup } from '../data/stored-dataset.js';
@@ -16,6 +18,7 @@ import { EmbeddingCache } from './embedding-cache.js';
 import { ensureEmbedding, modelForJob } from './embedding-step.js';
 import { resultDocument, resultSummary, rowsNamed, type ResultDocument } from './result-document.js';
 import { resolveFixed, resolvePrevious, type GivenSource } from './given-vectors.js';
+import { shardedPasses, type PassRecord, type PassSource } from './pass-shards.js';
 import type { SelectSpec } from './task.js';
 
 /**
@@ -57,6 +60,15 @@ export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
     return rows;
   }
   const rows = await loadRows();
+  // Full passes over more than one shard's rows are shared with other workers when there are any.
+  // A pass an earlier attempt left behind is of no use (its points were that attempt's).
+  await rm(join(store.dir(ref), 'passes'), { recursive: true, force: true });
+  const passRecords: PassRecord[] = [];
+  const passSource: PassSource = spec.embedding ? { kind: 'embedding', datasetId: spec.datasetId, cacheKey: spec.embedding.cacheKey } : { kind: 'dataset', datasetId: spec.datasetId };
+  const passes =
+    ctx.spawn && ctx.passShardRows > 0
+      ? (recipe: SpaceRecipe) => shardedPasses({ store, parent: ref, source: passSource, recipe, shardRows: ctx.passShardRows, spawn: ctx.spawn!, signal: ctx.signal, onPass: (r) => passRecords.push(r) })
+      : undefined;
   try {
     const labels = items && meta.hasLabels ? labelCodes(items.labels) : null;
 
@@ -93,6 +105,7 @@ export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
         onAssignments: (rank, distance) => {
           assignments = encodeAssignments(rank, distance);
         },
+        passes,
       });
       if (!assignments) throw new Error('the selection reported no assignments');
       await store.writeAtomic(ref, 'assignments.bin', assignments);
@@ -101,7 +114,7 @@ export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
         // What stability costs: the same selection without the earlier set (same seed, same fixed items).
         // The first run transformed `rows` in place, so the comparison reads them again rather than
         // keeping a second copy in memory during the first run.
-        const plain = await select(await loadRows(), spec.options, { backend, signal: ctx.signal, sourceIsScratch: true, memoryBudgetBytes: budget, fixed: fixed?.items });
+        const plain = await select(await loadRows(), spec.options, { backend, signal: ctx.signal, sourceIsScratch: true, memoryBudgetBytes: budget, fixed: fixed?.items, passes });
         const value = result.discrepancy.value;
         stabilityCost = { previousJobId: previous.jobId, droppedPrevious: previous.dropped, unconstrainedD2: plain.discrepancy.value, ratio: plain.discrepancy.value > 0 ? value / plain.discrepancy.value : null };
       }
@@ -115,6 +128,7 @@ export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
       if (!existsSync(join(dataset.dir, 'thumbs')) && !spec.embedding) {
         await store.writeAtomic(ref, 'projection.json', JSON.stringify(await projectSample(dataset, doc)));
       }
+      if (passRecords.length) await store.writeAtomic(ref, 'passes.json', JSON.stringify(passRecords) + '\n');
       await store.writeAtomic(ref, 'summary.json', JSON.stringify(resultSummary(doc)) + '\n');
       await store.writeAtomic(ref, 'result.json', JSON.stringify(doc) + '\n');
       await store.removeFile(ref, 'checkpoint.json');

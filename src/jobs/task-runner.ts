@@ -5,12 +5,16 @@ import { ingestProcessor } from './ingest-processor.js';
 import type { Processor } from './processor.js';
 import { selectProcessor } from './select-processor.js';
 import { embedProcessor } from './embed-processor.js';
+import { passProcessor } from './pass-shards.js';
 import type { TaskStore } from './task-store.js';
 import { cancelledCode, isFinal, type TaskError, type TaskKind, type TaskProgress, type TaskRef, type TaskState } from './task.js';
 
-const PROCESSORS: Record<TaskKind, Processor> = { dataset: ingestProcessor, job: selectProcessor, embed: embedProcessor };
+const PROCESSORS: Record<TaskKind, Processor> = { dataset: ingestProcessor, job: selectProcessor, embed: embedProcessor, pass: passProcessor };
 
 export const DEFAULT_MODELS_DIR = './models';
+
+/** The phase a completed task of each kind reports. */
+const FINAL_PHASE: Record<TaskKind, TaskProgress['phase']> = { dataset: 'ingest', job: 'done', embed: 'embed', pass: 'done' };
 
 export interface AttemptOptions {
   store: TaskStore;
@@ -26,6 +30,10 @@ export interface AttemptOptions {
   memoryBudgetBytes?: number;
   /** Default ./models. */
   modelsDir?: string;
+  /** See ProcessorContext.passShardRows. Default 0 (no shards). */
+  passShardRows?: number;
+  /** See ProcessorContext.spawn. */
+  spawn?: (refs: TaskRef[]) => Promise<void>;
   /** Every progress update (after it has been written to state.json, at most ~4 a second). */
   onState?: (state: TaskState) => void;
   log?: Logger;
@@ -98,9 +106,9 @@ export async function runAttempt(o: AttemptOptions): Promise<{ outcome: AttemptO
     await write({ ...state, status: 'running', attempt: o.attempt, startedAt: state.startedAt ?? now(), updatedAt: now(), runner: { host: hostname(), pid: process.pid } });
     o.onState?.(state);
     o.log?.info({ task: ref, attempt: o.attempt }, 'task started');
-    await PROCESSORS[ref.kind]({ store, ref, signal: stop.signal, onProgress, computeThreads: o.computeThreads, checkpointEveryMs: o.checkpointEveryMs, memoryBudgetBytes: o.memoryBudgetBytes, modelsDir: o.modelsDir ?? DEFAULT_MODELS_DIR });
+    await PROCESSORS[ref.kind]({ store, ref, signal: stop.signal, onProgress, computeThreads: o.computeThreads, checkpointEveryMs: o.checkpointEveryMs, memoryBudgetBytes: o.memoryBudgetBytes, modelsDir: o.modelsDir ?? DEFAULT_MODELS_DIR, passShardRows: o.passShardRows ?? 0, spawn: o.spawn });
     await writing;
-    await write({ ...state, status: 'completed', progress: { ...state.progress, phase: ref.kind === 'job' ? 'done' : 'ingest', fraction: 1 }, error: null, finishedAt: now(), updatedAt: now() });
+    await write({ ...state, status: 'completed', progress: { ...state.progress, phase: FINAL_PHASE[ref.kind], fraction: 1 }, error: null, finishedAt: now(), updatedAt: now() });
     o.log?.info({ task: ref, attempt: o.attempt }, 'task completed');
     o.onState?.(state);
     return { outcome: 'completed', error: null };

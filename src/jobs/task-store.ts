@@ -14,7 +14,10 @@ import { TASK_KINDS, type TaskKind, type TaskRef, type TaskSpec, type TaskState 
  *   tenants/<tenant>/embeddings/<dataset>/ cached embeddings per model (see EmbeddingCache)
  *   tenants/<tenant>/embed/<id>/          embedding shard task: spec.json, state.json
  *   tenants/<tenant>/job/<id>/            selection task: spec.json, state.json, checkpoint.json,
- *                                         result.json, summary.json, projection.json, assignments.bin, cancel (a marker)
+ *                                         result.json, summary.json, projection.json, assignments.bin,
+ *                                         passes.json, cancel (a marker), and while a full pass is
+ *                                         shared with other workers passes/<pass>/ (see pass-shards.ts)
+ *   tenants/<tenant>/pass/<id>/           pass shard task: spec.json, state.json (deleted with its pass)
  *   idempotency/<tenant>/<hash>.json      first answers to Idempotency-Key requests
  *
  * Each file has one writer: spec.json and `cancel` the API, state.json and the outputs the task's
@@ -180,7 +183,7 @@ export class TaskStore {
   }
 }
 
-export type TaskFile = 'spec.json' | 'state.json' | 'checkpoint.json' | 'result.json' | 'summary.json' | 'projection.json' | 'assignments.bin' | 'cancel' | 'source';
+export type TaskFile = 'spec.json' | 'state.json' | 'checkpoint.json' | 'result.json' | 'summary.json' | 'projection.json' | 'assignments.bin' | 'passes.json' | 'cancel' | 'source';
 
 export function notFound(ref: TaskRef): CairnError {
   if (ref.kind === 'dataset') return new CairnError('DATASET_NOT_FOUND', undefined, { datasetId: ref.id });

@@ -20,10 +20,13 @@ export interface TaskThreadData {
   checkpointEveryMs: number;
   memoryBudgetBytes?: number;
   modelsDir?: string;
+  passShardRows: number;
+  /** Whether other threads could run tasks this one spawns (the queue runs more than one at once). */
+  canSpawn: boolean;
   logLevel: string;
 }
 
-export type TaskThreadMessage = { type: 'state'; state: TaskState } | { type: 'done'; outcome: string };
+export type TaskThreadMessage = { type: 'state'; state: TaskState } | { type: 'spawn'; refs: TaskRef[] } | { type: 'done'; outcome: string };
 
 const data = workerData as TaskThreadData;
 lowerThreadPriority();
@@ -43,6 +46,8 @@ const result = await runAttempt({
   checkpointEveryMs: data.checkpointEveryMs,
   memoryBudgetBytes: data.memoryBudgetBytes,
   modelsDir: data.modelsDir,
+  passShardRows: data.passShardRows,
+  spawn: data.canSpawn ? async (refs) => port.postMessage({ type: 'spawn', refs } satisfies TaskThreadMessage) : undefined,
   log,
   onState: (state) => port.postMessage({ type: 'state', state } satisfies TaskThreadMessage),
 });

@@ -5,14 +5,15 @@ import type { DatasetFormat } from '../data/reader.js';
 import type { ErrorCode } from '../errors.js';
 
 /**
- * A task is one unit of queued work: ingesting an uploaded dataset, or running a selection. Each
+ * A task is one unit of queued work: ingesting an uploaded dataset, running a selection, or a
+ * shard of a selection's work (rows to embed, a range of a full pass). Each
  * lives in its own folder (see TaskStore) holding spec.json (written once, when it is created),
  * state.json (written by whoever runs it) and its outputs, so the API, the embedded queue and any
  * number of workers sharing the data folder agree on it without a database.
  */
-export type TaskKind = 'dataset' | 'job' | 'embed';
+export type TaskKind = 'dataset' | 'job' | 'embed' | 'pass';
 
-export const TASK_KINDS: readonly TaskKind[] = ['dataset', 'job', 'embed'];
+export const TASK_KINDS: readonly TaskKind[] = ['dataset', 'job', 'embed', 'pass'];
 
 export interface TaskRef {
   kind: TaskKind;
@@ -78,7 +79,21 @@ export interface EmbedSpec {
   createdAt: string;
 }
 
-export type TaskSpec = IngestSpec | SelectSpec | EmbedSpec;
+/**
+ * One shard of a full pass of a running selection: rows start..start+count−1 (see
+ * src/jobs/pass-shards.ts). The pass itself is in the job's folder, under passes/<pass>/.
+ */
+export interface PassSpec {
+  kind: 'pass';
+  parentJobId: string;
+  pass: string;
+  shard: number;
+  start: number;
+  count: number;
+  createdAt: string;
+}
+
+export type TaskSpec = IngestSpec | SelectSpec | EmbedSpec | PassSpec;
 
 export type TaskStatus = 'queued' | 'running' | 'completed' | 'failed' | 'cancelled';
 
@@ -113,7 +128,7 @@ export interface TaskState {
   runner?: { host: string; pid: number };
 }
 
-/** The error code a cancelled task of this kind ends with (an embedding shard is part of a selection job). */
+/** The error code a cancelled task of this kind ends with (embedding and pass shards are parts of a selection job). */
 export function cancelledCode(kind: TaskKind): 'DATASET_INGEST_CANCELLED' | 'SELECTION_CANCELLED' {
   return kind === 'dataset' ? 'DATASET_INGEST_CANCELLED' : 'SELECTION_CANCELLED';
 }

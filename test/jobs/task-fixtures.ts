@@ -15,6 +15,14 @@ export function clusterMatrix(rows: number, seed: number): { matrix: Float32Arra
   return { matrix, rows, cols };
 }
 
+/** Eight clusters in `cols` dimensions (cols ≥ 8). */
+export function clusters(rows: number, cols: number, seed: number): { matrix: Float32Array; rows: number; cols: number } {
+  const rng = new Rng(seed);
+  const matrix = new Float32Array(rows * cols);
+  for (let i = 0; i < rows; i++) for (let t = 0; t < cols; t++) matrix[i * cols + t] = (t % 8 === i % 8 ? 4 : 0) + rng.normal();
+  return { matrix, rows, cols };
+}
+
 let counter = 0;
 
 /** Writes an upload into the store's uploads folder and creates the ingestion task for it. */

@@ -1,16 +1,9 @@
-import { spawn, type ChildProcess } from 'node:child_process';
-import { mkdtempSync, readFileSync, rmSync } from 'node:fs';
-import { tmpdir } from 'node:os';
-import { join } from 'node:path';
-import { fileURLToPath } from 'node:url';
-import { afterAll, beforeAll, describe, expect, it } from 'vitest';
-import { Rng } from '../../src/core/random.js';
-import { BullQueue } from '../../src/jobs/bullmq-queue.js';
+import { describe, expect, it } from 'vitest';
 import type { ResultDocument } from '../../src/jobs/result-document.js';
-import { TaskStore } from '../../src/jobs/task-store.js';
 import type { SelectSpec, TaskState } from '../../src/jobs/task.js';
-import { deleteKeys, redisAnswers, testLog, testRedisUrl, uniquePrefix } from '../helpers/queues.js';
-import { createIngest, createSelect, npyOf, waitFor } from './task-fixtures.js';
+import { redisAnswers, testLog, testRedisUrl } from '../helpers/queues.js';
+import { clusters, createIngest, createSelect, npyOf, waitFor } from './task-fixtures.js';
+import { processGroup, useWorkerPair } from './worker-processes.js';
 
 /**
  * A worker killed outright (SIGKILL to its whole process group: the worker and its sandbox child)
@@ -23,104 +16,15 @@ const redisUp = await redisAnswers(redisUrl);
 const suite = redisUp || process.env.CI ? describe : describe.skip;
 const title = redisUp ? 'a killed BullMQ worker process' : `a killed BullMQ worker process (skipped: Redis at ${redisUrl} does not answer)`;
 
-const repoRoot = fileURLToPath(new URL('../..', import.meta.url));
 const options: SelectSpec['options'] = { k: 32, seed: 5, maxIterations: 32_000, plateauTolerance: 0 };
 
-interface WorkerProcess {
-  child: ChildProcess;
-  /** Its process group: detached, so the worker and its sandbox children share a group of their own. */
-  pgid: number;
-  exited: Promise<void>;
-}
-
-/** Eight clusters in 16-D. */
-function clusters16(rows: number, seed: number): { matrix: Float32Array; rows: number; cols: number } {
-  const cols = 16;
-  const rng = new Rng(seed);
-  const matrix = new Float32Array(rows * cols);
-  for (let i = 0; i < rows; i++) for (let t = 0; t < cols; t++) matrix[i * cols + t] = (t % 8 === i % 8 ? 4 : 0) + rng.normal();
-  return { matrix, rows, cols };
-}
-
-/** The process group of a live process (field 5 of /proc/<pid>/stat, counted after the parenthesised name). */
-function processGroup(pid: number): number | null {
-  try {
-    const stat = readFileSync(`/proc/${pid}/stat`, 'utf8');
-    return Number(stat.slice(stat.lastIndexOf(')') + 2).split(' ')[2]);
-  } catch {
-    return null;
-  }
-}
-
 suite(title, () => {
-  let dir: string;
-  let store: TaskStore;
-  let queue: BullQueue;
-  const prefix = uniquePrefix();
-  const workers: WorkerProcess[] = [];
+  const pair = useWorkerPair(redisUrl, 2, { CAIRN_CHECKPOINT_SECONDS: '0.5', CAIRN_STALLED_SECONDS: '2' });
   const tenant = 'acme';
 
-  const startWorker = (): Promise<WorkerProcess> =>
-    new Promise((resolve, reject) => {
-      const child = spawn(process.execPath, ['--import', 'tsx', 'test/jobs/worker-process.ts'], {
-        cwd: repoRoot,
-        detached: true,
-        stdio: ['ignore', 'pipe', 'inherit'],
-        env: {
-          ...process.env,
-          REDIS_URL: redisUrl,
-          CAIRN_QUEUE_PREFIX: prefix,
-          CAIRN_DATA_DIR: dir,
-          CAIRN_WORKER_CONCURRENCY: '1',
-          CAIRN_COMPUTE_THREADS: '1',
-          CAIRN_CHECKPOINT_SECONDS: '0.5',
-          CAIRN_STALLED_SECONDS: '2',
-          CAIRN_JOB_ATTEMPTS: '2',
-          LOG_LEVEL: process.env.TEST_LOG_LEVEL ?? 'warn',
-        },
-      });
-      const exited = new Promise<void>((res) => child.once('exit', () => res()));
-      let out = '';
-      child.stdout!.on('data', (chunk: Buffer) => {
-        out += chunk.toString();
-        if (out.includes('ready\n')) resolve({ child, pgid: child.pid!, exited });
-        // Pass the worker's own output through, for a failing run's log.
-        process.stdout.write(chunk);
-      });
-      child.once('exit', (code) => reject(new Error(`worker process exited early with code ${code}`)));
-    });
-
-  beforeAll(async () => {
-    dir = mkdtempSync(join(tmpdir(), 'cairn-kill-test-'));
-    store = new TaskStore(dir);
-    queue = await BullQueue.create({ redisUrl, prefix, store, maxAttempts: 2, backoffMs: 200, log: testLog });
-    workers.push(...(await Promise.all([startWorker(), startWorker()])));
-  }, 60_000);
-
-  afterAll(async () => {
-    for (const w of workers) {
-      if (w.child.exitCode !== null || w.child.signalCode !== null) continue;
-      try {
-        process.kill(-w.pgid, 'SIGTERM');
-      } catch {
-        // Gone meanwhile.
-      }
-      const stopped = await Promise.race([w.exited.then(() => true), new Promise<boolean>((res) => setTimeout(() => res(false), 10_000))]);
-      // The group too: a sandbox child must not outlive the test.
-      try {
-        process.kill(-w.pgid, 'SIGKILL');
-      } catch {
-        // Already empty.
-      }
-      if (!stopped) await w.exited;
-    }
-    await queue?.close(0);
-    await deleteKeys(redisUrl, prefix);
-    rmSync(dir, { recursive: true, force: true });
-  }, 60_000);
-
   it('another worker resumes the job from its checkpoint and gives the uninterrupted result', async () => {
-    const ds = await createIngest(store, tenant, npyOf(clusters16(20_000, 8)));
+    const { store, queue, workers } = pair;
+    const ds = await createIngest(store, tenant, npyOf(clusters(20_000, 16, 8)));
     await queue.enqueue(ds);
     expect((await waitFor(store, queue, ds)).status).toBe('completed');
 
