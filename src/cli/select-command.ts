@@ -3,15 +3,18 @@ import { tmpdir, totalmem } from 'node:os';
 import { basename, join } from 'node:path';
 import type { ComputeBackend } from '../compute/backend.js';
 import { createBackend, type BackendKind } from '../compute/create-backend.js';
-import type { DenseRows } from '../core/rows.js';
+import type { LabelCodes } from '../core/coverage.js';
 import type { SelectOptionsInput } from '../core/options.js';
+import type { SelectionResult } from '../core/result.js';
+import type { DenseRows } from '../core/rows.js';
 import { select } from '../core/select.js';
-import { ingestFile, openDataset } from '../data/dataset-store.js';
+import { ingestFile, openDataset, type StoredDatasetMeta } from '../data/dataset-store.js';
 import { closeRows, type FileRows } from '../data/file-rows.js';
-import { itemLookup } from '../data/stored-dataset.js';
 import { labelCodes } from '../data/label-codes.js';
+import { openNpyRows } from '../data/npy-rows.js';
 import { defaultReadOptions, type ReadOptionOverrides } from '../data/read-options.js';
-import type { DatasetFormat } from '../data/reader.js';
+import type { DatasetFormat, ReadOptions } from '../data/reader.js';
+import { itemLookup, type ItemLookup } from '../data/stored-dataset.js';
 import { resultDocument, rowsNamed, type ResultDocument } from '../jobs/result-document.js';
 import { ProgressBar } from './progress-bar.js';
 
@@ -25,39 +28,49 @@ export interface SelectCommandInput {
   progress: boolean;
   /** See SelectContext.memoryBudgetBytes. Default: half of the physical memory. */
   memoryBudgetBytes?: number;
+  /** false: ingest a float32 .npy too instead of reading it in place (tests compare the two). Default true. */
+  readNpyInPlace?: boolean;
 }
 
 /** The CLI's result: the engine's result plus the item ids and where the data came from. */
 export type CliResult = ResultDocument;
 
+/** The input as select() and resultDocument() take it. */
+interface OpenedInput {
+  rows: DenseRows | FileRows;
+  meta: StoredDatasetMeta;
+  labels: LabelCodes | null;
+  /** Ids and labels of at least the rows the result names. */
+  lookup(result: SelectionResult): Promise<ItemLookup>;
+}
+
 /**
- * `cairn select FILE`: ingests the file into a private temporary store (the same readers and
- * limits as the service), runs one selection in this process and writes the result JSON.
- * The temporary store is deleted afterwards, also on failure.
+ * `cairn select FILE`: runs one selection in this process and writes the result JSON. A
+ * little-endian float32 .npy is read in place (openNpyRows: into memory when it fits the budget,
+ * else from the file on demand); any other input is ingested into a private temporary store (the
+ * same readers and limits as the service), deleted afterwards, also on failure. Both give the same
+ * checks, errors, ids and result document.
  */
 export async function runSelectCommand(input: SelectCommandInput): Promise<CliResult> {
-  const storeDir = await mkdtemp(join(tmpdir(), 'cairn-select-'));
-  let rows: DenseRows | FileRows | null = null;
+  const budget = input.memoryBudgetBytes ?? Math.floor(totalmem() / 2);
+  const options = defaultReadOptions(input.read);
+  let storeDir: string | null = null;
+  let opened: OpenedInput | null = null;
   let backend: ComputeBackend | null = null;
   try {
-    const meta = await ingestFile(input.file, {
-      storeDir,
-      datasetId: 'input',
-      format: input.format,
-      options: defaultReadOptions(input.read),
-    });
-    const dataset = openDataset(storeDir, 'input');
-    const budget = input.memoryBudgetBytes ?? Math.floor(totalmem() / 2);
-    // All ids and labels only for labels; otherwise just the ids of the rows the result names.
-    const items = meta.hasLabels ? await dataset.readItems() : null;
-    const labels = items ? labelCodes(items.labels) : null;
+    const inPlace = input.readNpyInPlace === false ? null : await openNpyRows(input.file, { format: input.format, datasetId: 'input', options, budgetBytes: budget });
+    if (inPlace) {
+      opened = { rows: inPlace.rows, meta: inPlace.meta, labels: null, lookup: () => Promise.resolve(inPlace.items) };
+    } else {
+      storeDir = await mkdtemp(join(tmpdir(), 'cairn-select-'));
+      opened = await ingestInput(input, options, storeDir, budget);
+    }
+    const { rows, meta, labels } = opened;
     const bar = new ProgressBar(process.stderr, input.progress);
-    rows = dataset.rowSource(budget);
     // Rows read from their file mean memory is tight: no ORT arenas holding each graph's peak buffers.
     backend = await createBackend(input.backend, { memoryArena: rows.resident });
     const result = await select(rows, input.options, { backend, labels, sourceIsScratch: true, memoryBudgetBytes: budget, onProgress: (p) => bar.update(p) });
-    const lookup = items ? itemLookup(items) : await dataset.readItemsAt(rowsNamed(result));
-    const out: CliResult = resultDocument(result, lookup, meta, { source: basename(input.file) });
+    const out: CliResult = resultDocument(result, await opened.lookup(result), meta, { source: basename(input.file) });
     const text = JSON.stringify(out, null, 2) + '\n';
     if (input.out) {
       await writeFile(input.out, text);
@@ -67,10 +80,24 @@ export async function runSelectCommand(input: SelectCommandInput): Promise<CliRe
     }
     return out;
   } finally {
-    if (rows) closeRows(rows);
+    if (opened) closeRows(opened.rows);
     await backend?.dispose();
-    await rm(storeDir, { recursive: true, force: true });
+    if (storeDir) await rm(storeDir, { recursive: true, force: true });
   }
+}
+
+/** Ingests the input into `storeDir` and opens it within the budget. */
+async function ingestInput(input: SelectCommandInput, options: ReadOptions, storeDir: string, budget: number): Promise<OpenedInput> {
+  const meta = await ingestFile(input.file, { storeDir, datasetId: 'input', format: input.format, options });
+  const dataset = openDataset(storeDir, 'input');
+  // All ids and labels only for labels; otherwise just the ids of the rows the result names.
+  const items = meta.hasLabels ? await dataset.readItems() : null;
+  return {
+    rows: dataset.rowSource(budget),
+    meta,
+    labels: items ? labelCodes(items.labels) : null,
+    lookup: (result) => (items ? Promise.resolve(itemLookup(items)) : dataset.readItemsAt(rowsNamed(result))),
+  };
 }
 
 /** A short human summary for stderr when the JSON went to a file. */

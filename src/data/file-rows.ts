@@ -6,7 +6,7 @@ const READ_CHUNK = 1024 ** 3;
 
 /**
  * The rows of a row-major float32 file (a stored dataset's matrix.f32, an embedding's
- * matrix.f32), read from disk on demand instead of held in memory: the selection's streamed
+ * matrix.f32, or the data of a float32 .npy after its header, at `dataOffset`), read from disk on demand instead of held in memory: the selection's streamed
  * passes read blocks, its samples and minibatches gather rows. Gathers read each run of
  * consecutive rows with one positional read, so a minibatch of row blocks costs one read per
  * block. The file stays open until close().
@@ -19,13 +19,16 @@ export class FileRows implements RowSource {
     readonly path: string,
     readonly rows: number,
     readonly cols: number,
+    /** Byte position of the first row; the file must end with the last row. */
+    readonly dataOffset = 0,
   ) {
     this.fd = openSync(path, 'r');
     const size = fstatSync(this.fd).size;
-    if (size !== rows * cols * 4) {
+    if (size !== dataOffset + rows * cols * 4) {
       closeSync(this.fd);
       this.fd = null;
-      throw new RangeError(`${path} has ${size} bytes, expected ${rows}×${cols} float32 values (${rows * cols * 4})`);
+      const after = dataOffset ? ` after ${dataOffset} header bytes` : '';
+      throw new RangeError(`${path} has ${size} bytes, expected ${rows}×${cols} float32 values (${rows * cols * 4})${after}`);
     }
   }
 
@@ -73,7 +76,7 @@ export class FileRows implements RowSource {
     const bytes = new Uint8Array(out.buffer, out.byteOffset + offset * 4, count * this.cols * 4);
     let done = 0;
     while (done < bytes.length) {
-      const got = readSync(this.fd, bytes, done, Math.min(READ_CHUNK, bytes.length - done), startRow * this.cols * 4 + done);
+      const got = readSync(this.fd, bytes, done, Math.min(READ_CHUNK, bytes.length - done), this.dataOffset + startRow * this.cols * 4 + done);
       if (got === 0) throw new Error(`${this.path} ended early`);
       done += got;
     }

@@ -104,11 +104,12 @@ function parseDescr(descr: PyValue): { dtype: NpyDtype; itemSize: number } {
   });
 }
 
-async function readFully(fh: FileHandle, target: Buffer, position: number): Promise<void> {
+/** Fills `target` from the file at `position`; NPY_TRUNCATED with `endMessage` when the file ends first. */
+export async function readFully(fh: FileHandle, target: Uint8Array, position: number, endMessage = 'The .npy file ends inside its header.'): Promise<void> {
   let done = 0;
   while (done < target.length) {
     const { bytesRead } = await fh.read(target, done, target.length - done, position + done);
-    if (bytesRead === 0) throw new CairnError('NPY_TRUNCATED', 'The .npy file ends inside its header.');
+    if (bytesRead === 0) throw new CairnError('NPY_TRUNCATED', endMessage);
     done += bytesRead;
   }
 }

@@ -1,7 +1,7 @@
 import { open, type FileHandle } from 'node:fs/promises';
 import { CairnError } from '../errors.js';
 import { readNpyHeader, type NpyHeader } from './npy-header.js';
-import type { DatasetReader, DatasetSink, ReadOptions, ReadSummary } from './reader.js';
+import type { DatasetReader, DatasetSink, ReaderLimits, ReadOptions, ReadSummary } from './reader.js';
 import { checkCols, checkFileSize, checkRows } from './reader-limits.js';
 import { RowBatcher } from './row-batcher.js';
 
@@ -21,25 +21,8 @@ export const npyReader: DatasetReader = {
     const fh = await open(path, 'r');
     try {
       const header = await readNpyHeader(fh, fileSize);
-      const { rows, cols, itemSize, dataOffset } = header;
-      if (rows === 0) throw new CairnError('DATASET_EMPTY');
-      checkCols(cols, options.limits);
-      checkRows(rows, options.limits);
-      const expected = rows * cols * itemSize;
-      const actual = fileSize - dataOffset;
-      if (actual < expected) {
-        throw new CairnError('NPY_TRUNCATED', `The header promises ${expected} data bytes; the file has ${actual}.`, {
-          expectedBytes: expected,
-          actualBytes: actual,
-        });
-      }
-      if (actual > expected) {
-        throw new CairnError('NPY_TRAILING_DATA', `The header promises ${expected} data bytes; the file has ${actual}.`, {
-          expectedBytes: expected,
-          actualBytes: actual,
-        });
-      }
-
+      checkNpyData(header, fileSize, options.limits);
+      const { cols } = header;
       const batcher = new RowBatcher(sink, options);
       await batcher.begin(cols);
       await streamRows(fh, header, batcher, options.scaleUint8);
@@ -50,6 +33,32 @@ export const npyReader: DatasetReader = {
     }
   },
 };
+
+/**
+ * The checks of a .npy's header against the file and the limits before any row is read: at least
+ * one row, maxCols, maxRows, and a data size that matches the header exactly (short: NPY_TRUNCATED,
+ * longer: NPY_TRAILING_DATA). Shared with openNpyRows, which reads float32 files in place.
+ */
+export function checkNpyData(header: NpyHeader, fileSize: number, limits: ReaderLimits): void {
+  const { rows, cols, itemSize, dataOffset } = header;
+  if (rows === 0) throw new CairnError('DATASET_EMPTY');
+  checkCols(cols, limits);
+  checkRows(rows, limits);
+  const expected = rows * cols * itemSize;
+  const actual = fileSize - dataOffset;
+  if (actual < expected) {
+    throw new CairnError('NPY_TRUNCATED', `The header promises ${expected} data bytes; the file has ${actual}.`, {
+      expectedBytes: expected,
+      actualBytes: actual,
+    });
+  }
+  if (actual > expected) {
+    throw new CairnError('NPY_TRAILING_DATA', `The header promises ${expected} data bytes; the file has ${actual}.`, {
+      expectedBytes: expected,
+      actualBytes: actual,
+    });
+  }
+}
 
 async function streamRows(fh: FileHandle, header: NpyHeader, batcher: RowBatcher, scaleUint8: boolean): Promise<void> {
   const { rows, cols, itemSize, dataOffset, dtype } = header;

@@ -75,11 +75,7 @@ export class RowBatcher {
           this.droppedNonFinite++;
           return false;
         }
-        throw new CairnError('NON_FINITE_VALUE', `Row ${row} has a NaN or infinite value in feature ${i - start}.`, {
-          row,
-          feature: i - start,
-          ...place,
-        });
+        throw nonFiniteValue(row, i - start, place);
       }
     }
     checkRows(this.rows + 1, this.options.limits);
@@ -116,4 +112,9 @@ export class RowBatcher {
       );
     }
   }
+}
+
+/** The error for a NaN or ±Infinity at a source row and feature (0-based); shared with openNpyRows. */
+export function nonFiniteValue(row: number, feature: number, place?: RecordPlace): CairnError {
+  return new CairnError('NON_FINITE_VALUE', `Row ${row} has a NaN or infinite value in feature ${feature}.`, { row, feature, ...place });
 }

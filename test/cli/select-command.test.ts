@@ -1,9 +1,10 @@
+import { createHash } from 'node:crypto';
 import { mkdtempSync, readdirSync, readFileSync, rmSync, writeFileSync } from 'node:fs';
 import { tmpdir } from 'node:os';
 import { join } from 'node:path';
 import { afterAll, describe, expect, it } from 'vitest';
 import { buildProgram } from '../../src/cli/program.js';
-import type { CliResult } from '../../src/cli/select-command.js';
+import { runSelectCommand, type CliResult, type SelectCommandInput } from '../../src/cli/select-command.js';
 import { Rng } from '../../src/core/random.js';
 import { buildTar, png } from '../data/archive-fixtures.js';
 import { npyBytes } from '../data/fixtures.js';
@@ -94,5 +95,78 @@ describe('cairn select', () => {
     writeFileSync(bad, Buffer.from('not a numpy file at all'));
     await expect(runCli([bad, '--k', '2', '--format', 'npy'])).rejects.toMatchObject({ code: 'NPY_BAD_MAGIC' });
     expect(leftovers()).toEqual(before);
+  });
+
+  describe('a float32 .npy read in place', () => {
+    /** runSelectCommand with the options of runCli; the result file's text, trace.seconds (timings) left out. */
+    async function resultText(file: string, extra: Partial<SelectCommandInput> = {}): Promise<string> {
+      const out = join(dir, `result-${Math.random().toString(36).slice(2)}.json`);
+      await runSelectCommand({ file, read: {}, options: { k: 6, seed: 3, maxIterations: 150 }, backend: 'onnx', progress: false, out, ...extra });
+      const doc = JSON.parse(readFileSync(out, 'utf8')) as CliResult;
+      expect(Object.keys(doc.trace.seconds).length).toBeGreaterThan(0);
+      doc.trace.seconds = {};
+      return JSON.stringify(doc, null, 2);
+    }
+
+    /** Runs `run` with the system temp directory pointing nowhere: any temporary store fails with ENOENT. */
+    async function withoutTmpdir<T>(run: () => Promise<T>): Promise<T> {
+      const saved = process.env.TMPDIR;
+      process.env.TMPDIR = join(dir, 'no-such-dir');
+      try {
+        return await run();
+      } finally {
+        if (saved === undefined) delete process.env.TMPDIR;
+        else process.env.TMPDIR = saved;
+      }
+    }
+
+    const file = join(dir, 'in-place.npy');
+    writeFileSync(file, npyBytes(matrix, [rows, cols]));
+
+    it('writes the result the ingested copy gives, held in memory and read from the file, without a temporary store', async () => {
+      for (const memoryBudgetBytes of [undefined, 1]) {
+        const inPlace = await withoutTmpdir(() => resultText(file, { memoryBudgetBytes }));
+        await expect(withoutTmpdir(() => resultText(file, { memoryBudgetBytes, readNpyInPlace: false }))).rejects.toMatchObject({ code: 'ENOENT' });
+        const ingested = await resultText(file, { memoryBudgetBytes, readNpyInPlace: false });
+        expect(inPlace).toBe(ingested);
+        const doc = JSON.parse(inPlace) as CliResult;
+        expect(doc.dataset).toEqual({
+          source: 'in-place.npy',
+          format: 'npy',
+          rows,
+          cols,
+          sha256: createHash('sha256').update(readFileSync(file)).digest('hex'),
+          droppedNonFinite: 0,
+          skippedImages: 0,
+        });
+        expect(doc.representatives.every((r) => r.id === String(r.index) && r.label === null)).toBe(true);
+      }
+    });
+
+    it('gives the same selection as a float64 copy of the same values, which is ingested', async () => {
+      const f64 = join(dir, 'same-f64.npy');
+      writeFileSync(f64, npyBytes(Float64Array.from(matrix), [rows, cols]));
+      await expect(withoutTmpdir(() => resultText(f64))).rejects.toMatchObject({ code: 'ENOENT' });
+      const a = JSON.parse(await resultText(file)) as CliResult;
+      const b = JSON.parse(await resultText(f64)) as CliResult;
+      expect(b.dataset.sha256).not.toBe(a.dataset.sha256);
+      expect({ ...b, dataset: { ...b.dataset, source: '', sha256: '' } }).toEqual({ ...a, dataset: { ...a.dataset, source: '', sha256: '' } });
+    });
+
+    it('rejects NaN with the error code and row that ingestion gives; --non-finite drop falls back to ingestion', async () => {
+      const withNaN = Float32Array.from(matrix);
+      withNaN[17 * cols + 2] = NaN;
+      const nanFile = join(dir, 'nan.npy');
+      writeFileSync(nanFile, npyBytes(withNaN, [rows, cols]));
+      const expected = { code: 'NON_FINITE_VALUE', message: 'Row 17 has a NaN or infinite value in feature 2.', details: { row: 17, feature: 2 } };
+      await expect(runCli([nanFile, '--k', '6'])).rejects.toMatchObject(expected);
+      await expect(runCli([nanFile, '--k', '6', '--memory-budget', '0'])).rejects.toMatchObject(expected);
+      await expect(resultText(nanFile, { readNpyInPlace: false })).rejects.toMatchObject(expected);
+      const dropped = await runCli([nanFile, '--k', '6', '--seed', '3', '--non-finite', 'drop']);
+      expect(dropped.dataset).toMatchObject({ rows: rows - 1, droppedNonFinite: 1 });
+      // Ids stay source row numbers: rows after the dropped one are one further on.
+      for (const rep of dropped.representatives) expect(rep.id).toBe(String(rep.index < 17 ? rep.index : rep.index + 1));
+      expect(leftovers()).toEqual(before);
+    });
   });
 });

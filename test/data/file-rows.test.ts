@@ -56,6 +56,30 @@ describe('FileRows', () => {
     expect(() => new FileRows(path, rows + 1, cols)).toThrow(RangeError);
   });
 
+  it('reads rows that start at a byte offset (a header before them), aligned or not', () => {
+    for (const offset of [128, 77]) {
+      const header = Buffer.alloc(offset, 0xab);
+      const shifted = join(dir, `offset-${offset}.bin`);
+      writeFileSync(shifted, Buffer.concat([header, Buffer.from(data.buffer, data.byteOffset, data.byteLength)]));
+      const file = new FileRows(shifted, rows, cols, offset);
+      try {
+        expect(file.dataOffset).toBe(offset);
+        expect(file.read(0, rows)).toEqual(dense.read(0, rows));
+        expect(file.read(rows - 3, 3)).toEqual(dense.read(rows - 3, 3));
+        expect(file.gather([rows - 1, 0, 1, 2, 250, 250])).toEqual(dense.gather([rows - 1, 0, 1, 2, 250, 250]));
+      } finally {
+        file.close();
+      }
+      // The size must be the offset plus the rows exactly; the offset is not read as data.
+      expect(() => new FileRows(shifted, rows, cols)).toThrow(RangeError);
+      expect(() => new FileRows(shifted, rows, cols, offset - 4)).toThrow(/after 73 header bytes|after 124 header bytes/);
+      expect(() => new FileRows(shifted, rows - 1, cols, offset)).toThrow(RangeError);
+    }
+    const plain = new FileRows(path, rows, cols);
+    expect(plain.dataOffset).toBe(0);
+    plain.close();
+  });
+
   it('openRows holds the matrix in memory when it fits the budget, else reads the file', () => {
     const held = openRows(path, rows, cols, rows * cols * 4);
     expect(held).toBeInstanceOf(DenseRows);
