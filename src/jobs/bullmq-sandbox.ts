@@ -47,6 +47,7 @@ export default async function processTask(job: SandboxedJob<TaskRef>, token?: st
     modelsDir: settings.modelsDir,
     passShardRows: settings.passShardRows,
     spawn,
+    withdraw,
     // Published for the API's QueueEvents; a lost update is harmless (state.json is the truth).
     onState: (state) => void job.updateProgress({ ref, state } satisfies ProgressMessage).catch(() => undefined),
     log,
@@ -68,22 +69,31 @@ export default async function processTask(job: SandboxedJob<TaskRef>, token?: st
 
 let passQueue: Queue | null = null;
 
+function shardQueue(): Queue {
+  if (!passQueue) {
+    passQueue = new Queue(QUEUE_NAMES.pass, { connection: { url: settings.redisUrl, maxRetriesPerRequest: 1 }, prefix: settings.prefix });
+    passQueue.on('error', (err) => log.warn({ err }, 'pass queue connection error'));
+  }
+  return passQueue;
+}
+
 /**
  * Adds a selection's pass shards to the 'pass' queue, for any worker. One attempt each: a shard
  * nobody finishes is computed by its selection itself. Finished shard jobs leave Redis after an hour.
  */
 async function spawn(refs: TaskRef[]): Promise<void> {
-  if (!passQueue) {
-    passQueue = new Queue(QUEUE_NAMES.pass, { connection: { url: settings.redisUrl, maxRetriesPerRequest: 1 }, prefix: settings.prefix });
-    passQueue.on('error', (err) => log.warn({ err }, 'pass queue connection error'));
-  }
-  const q = passQueue;
-  await q.addBulk(
+  await shardQueue().addBulk(
     refs.map((ref) => {
       if (ref.kind !== 'pass') throw new Error(`a selection spawns pass shards only, not ${ref.kind} tasks`);
       return { name: taskKey(ref), data: ref, opts: { jobId: jobIdOf(ref), attempts: 1, removeOnComplete: { age: 3600 }, removeOnFail: { age: 3600 } } };
     }),
   );
+}
+
+/** Removes shard jobs still waiting (remove() leaves a job a worker has locked alone). */
+async function withdraw(refs: TaskRef[]): Promise<void> {
+  const q = shardQueue();
+  await Promise.all(refs.map((ref) => q.remove(jobIdOf(ref)).catch(() => 0)));
 }
 
 function readSettings(): SandboxSettings {

@@ -111,6 +111,12 @@ export class EmbeddedQueue implements JobQueue {
     this.pump();
   }
 
+  /** Drops spawned tasks that have not started (their spawner removes their folders). */
+  private withdraw(refs: TaskRef[]): void {
+    const keys = new Set(refs.map(taskKey));
+    for (let i = this.waiting.length - 1; i >= 0; i--) if (keys.has(taskKey(this.waiting[i]))) this.waiting.splice(i, 1);
+  }
+
   async cancel(ref: TaskRef): Promise<void> {
     const key = taskKey(ref);
     const at = this.waiting.findIndex((r) => taskKey(r) === key);
@@ -198,6 +204,7 @@ export class EmbeddedQueue implements JobQueue {
       worker.on('message', (m: TaskThreadMessage) => {
         if (m.type === 'state') this.events.emit('state', { ref, state: m.state });
         else if (m.type === 'spawn') for (const r of m.refs) void this.enqueue(r);
+        else if (m.type === 'withdraw') this.withdraw(m.refs);
         else outcome = m.outcome;
       });
       worker.on('error', (err) => this.o.log.error({ task: ref, err }, 'task thread failed'));

@@ -50,7 +50,7 @@ import type { PassSpec, TaskRef } from './task.js';
 
 /** How often a claimant touches its claim file while it computes the shard. */
 const HEARTBEAT_MS = 2000;
-/** A claim untouched for this long belongs to a dead claimant. */
+/** A claim untouched for this long (as the job's process sees it) belongs to a dead claimant. */
 const CLAIM_STALE_MS = 20_000;
 /** How often the parent looks for the parts of shards others compute. */
 const WAIT_POLL_MS = 50;
@@ -98,9 +98,13 @@ export interface ShardedPassesOptions {
   shardRows: number;
   /** Hands the shard tasks to the queue. */
   spawn: (refs: TaskRef[]) => Promise<void>;
+  /** Takes the pass's shard tasks that have not started out of the queue, when the pass ends. */
+  withdraw?: (refs: TaskRef[]) => Promise<void>;
   signal: AbortSignal;
   /** Every pass's record, when it ends. */
   onPass?: (record: PassRecord) => void;
+  /** A claim untouched this long is a dead claimant's. Default CLAIM_STALE_MS. */
+  claimStaleMs?: number;
 }
 
 /** RowPasses that share every pass of at least two shards with other workers; smaller ones run here. */
@@ -145,6 +149,9 @@ export function shardedPasses(o: ShardedPassesOptions): RowPasses {
         if (await claim(dir, i)) await withHeartbeat(claimPath(dir, i), () => computeHere(i));
       }
       // The rest are being computed elsewhere: wait for them, taking over any whose claimant died.
+      // A claim is stale when its mtime has not changed for CLAIM_STALE_MS by this process's clock
+      // (another host's clock may be off: only changes of its timestamps are compared).
+      const touched = new Map<number, { mtimeMs: number; seenAt: number }>();
       for (;;) {
         const missing: number[] = [];
         for (let i = 0; i < ranges.length; i++) if (!(await pathExists(partPath(dir, i)))) missing.push(i);
@@ -152,7 +159,9 @@ export function shardedPasses(o: ShardedPassesOptions): RowPasses {
         checkAbort(o.signal);
         for (const i of missing) {
           const s = await stat(claimPath(dir, i)).catch(() => null);
-          if (!s || Date.now() - s.mtimeMs > CLAIM_STALE_MS) await computeHere(i);
+          const last = touched.get(i);
+          if (s && last?.mtimeMs !== s.mtimeMs) touched.set(i, { mtimeMs: s.mtimeMs, seenAt: Date.now() });
+          else if (!s || Date.now() - last!.seenAt > (o.claimStaleMs ?? CLAIM_STALE_MS)) await computeHere(i);
         }
         await new Promise((r) => setTimeout(r, WAIT_POLL_MS));
       }
@@ -164,6 +173,7 @@ export function shardedPasses(o: ShardedPassesOptions): RowPasses {
       o.onPass?.({ op: file.op, rows: rows.rows, shards: ranges.map(([start, count], i) => ({ start, count, ...byWhom.get(i)! })) });
       return merge(parts, ranges);
     } finally {
+      await o.withdraw?.(refs).catch(() => undefined);
       await rm(dir, { recursive: true, force: true });
       await Promise.all(refs.map((r) => o.store.remove(r).catch(() => undefined)));
     }

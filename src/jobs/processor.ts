@@ -19,6 +19,8 @@ export interface ProcessorContext {
   passShardRows: number;
   /** Hands tasks to the queue, for other workers to run (absent where no other worker would). */
   spawn?: (refs: TaskRef[]) => Promise<void>;
+  /** Takes spawned tasks that have not started out of the queue (their work is done or moot). */
+  withdraw?: (refs: TaskRef[]) => Promise<void>;
 }
 
 /** Runs one task to completion, writing its outputs into the task folder; throws on failure. */

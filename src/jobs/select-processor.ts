@@ -67,7 +67,7 @@ export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
   const passSource: PassSource = spec.embedding ? { kind: 'embedding', datasetId: spec.datasetId, cacheKey: spec.embedding.cacheKey } : { kind: 'dataset', datasetId: spec.datasetId };
   const passes =
     ctx.spawn && ctx.passShardRows > 0
-      ? (recipe: SpaceRecipe) => shardedPasses({ store, parent: ref, source: passSource, recipe, shardRows: ctx.passShardRows, spawn: ctx.spawn!, signal: ctx.signal, onPass: (r) => passRecords.push(r) })
+      ? (recipe: SpaceRecipe) => shardedPasses({ store, parent: ref, source: passSource, recipe, shardRows: ctx.passShardRows, spawn: ctx.spawn!, withdraw: ctx.withdraw, signal: ctx.signal, onPass: (r) => passRecords.push(r) })
       : undefined;
   try {
     const labels = items && meta.hasLabels ? labelCodes(items.labels) : null;

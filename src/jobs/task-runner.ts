@@ -32,8 +32,9 @@ export interface AttemptOptions {
   modelsDir?: string;
   /** See ProcessorContext.passShardRows. Default 0 (no shards). */
   passShardRows?: number;
-  /** See ProcessorContext.spawn. */
+  /** See ProcessorContext.spawn and withdraw. */
   spawn?: (refs: TaskRef[]) => Promise<void>;
+  withdraw?: (refs: TaskRef[]) => Promise<void>;
   /** Every progress update (after it has been written to state.json, at most ~4 a second). */
   onState?: (state: TaskState) => void;
   log?: Logger;
@@ -106,7 +107,7 @@ export async function runAttempt(o: AttemptOptions): Promise<{ outcome: AttemptO
     await write({ ...state, status: 'running', attempt: o.attempt, startedAt: state.startedAt ?? now(), updatedAt: now(), runner: { host: hostname(), pid: process.pid } });
     o.onState?.(state);
     o.log?.info({ task: ref, attempt: o.attempt }, 'task started');
-    await PROCESSORS[ref.kind]({ store, ref, signal: stop.signal, onProgress, computeThreads: o.computeThreads, checkpointEveryMs: o.checkpointEveryMs, memoryBudgetBytes: o.memoryBudgetBytes, modelsDir: o.modelsDir ?? DEFAULT_MODELS_DIR, passShardRows: o.passShardRows ?? 0, spawn: o.spawn });
+    await PROCESSORS[ref.kind]({ store, ref, signal: stop.signal, onProgress, computeThreads: o.computeThreads, checkpointEveryMs: o.checkpointEveryMs, memoryBudgetBytes: o.memoryBudgetBytes, modelsDir: o.modelsDir ?? DEFAULT_MODELS_DIR, passShardRows: o.passShardRows ?? 0, spawn: o.spawn, withdraw: o.withdraw });
     await writing;
     await write({ ...state, status: 'completed', progress: { ...state.progress, phase: FINAL_PHASE[ref.kind], fraction: 1 }, error: null, finishedAt: now(), updatedAt: now() });
     o.log?.info({ task: ref, attempt: o.attempt }, 'task completed');

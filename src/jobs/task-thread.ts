@@ -26,7 +26,7 @@ export interface TaskThreadData {
   logLevel: string;
 }
 
-export type TaskThreadMessage = { type: 'state'; state: TaskState } | { type: 'spawn'; refs: TaskRef[] } | { type: 'done'; outcome: string };
+export type TaskThreadMessage = { type: 'state'; state: TaskState } | { type: 'spawn'; refs: TaskRef[] } | { type: 'withdraw'; refs: TaskRef[] } | { type: 'done'; outcome: string };
 
 const data = workerData as TaskThreadData;
 lowerThreadPriority();
@@ -48,6 +48,7 @@ const result = await runAttempt({
   modelsDir: data.modelsDir,
   passShardRows: data.passShardRows,
   spawn: data.canSpawn ? async (refs) => port.postMessage({ type: 'spawn', refs } satisfies TaskThreadMessage) : undefined,
+  withdraw: data.canSpawn ? async (refs) => port.postMessage({ type: 'withdraw', refs } satisfies TaskThreadMessage) : undefined,
   log,
   onState: (state) => port.postMessage({ type: 'state', state } satisfies TaskThreadMessage),
 });

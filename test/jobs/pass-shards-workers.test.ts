@@ -150,6 +150,7 @@ describe("full passes shared by the embedded queue's threads", () => {
         recipe: space.recipe,
         shardRows: SHARD_ROWS,
         spawn: async (refs) => refs.forEach((r) => void queue.enqueue(r)),
+        withdraw: async (refs) => refs.forEach((r) => void queue.cancel(r)),
         signal: new AbortController().signal,
         onPass: (r) => records.push(r),
       });
