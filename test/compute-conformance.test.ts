@@ -54,6 +54,8 @@ const CASES: Case[] = [
   makeCase(5, 1031, 40, 33),
   makeCase(6, 64, 64, 5, { dup: true }),
   makeCase(7, 200, 12, 48, { offset: 20 }),
+  // One point (k = 1): the ONNX backend's kernel matrix feeds it in twice (onnx-backend.ts).
+  makeCase(8, 500, 1, 24, { dup: true }),
   ...[0, 1, 2].map((s) => makeCase(100 + s, randInt(1, 600), randInt(1, 40), randInt(1, 70), { dup: s === 1 })),
 ];
 const KERNELS: KernelSpec[] = [

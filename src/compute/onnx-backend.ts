@@ -82,15 +82,27 @@ export class OnnxBackend implements ComputeBackend {
     checkKernel(kernel);
     if (this.tiny(na * nb * d)) return this.reference.kernelMatrix(a, na, b, nb, d, kernel);
     const out = await this.run(`kernelMatrix:${kernel.kind}`, { x: f32(a, [na, d]), p: f32(b, [nb, d]), ...param(kernel) });
-    return Float64Array.from(out.h.data as Float32Array);
+    return new Float64Array(out.h.data as Float32Array);
   }
 
   async kernelMatrixPrepared(aAug: Float32Array, na: number, b: Float32Array, nb: number, d: number, kernel: KernelSpec): Promise<Float64Array> {
     checkPrepared(aAug, na, b, nb, d);
     checkKernel(kernel);
     if (this.tiny(na * nb * d)) return this.reference.kernelMatrixPrepared(aAug, na, b, nb, d, kernel);
+    if (nb === 1) {
+      // One point: ORT's matrix product by a single column is markedly slower than by two (a 54,000-row
+      // pool, d = 128, 2 threads: 5.2 vs 3.9 ms; 20,000 rows: 2.8 vs 1.5 ms), so it goes in twice.
+      const twice = new Float32Array(2 * d);
+      twice.set(b.subarray(0, d));
+      twice.set(b.subarray(0, d), d);
+      const out = await this.run(`kernelMatrixPrepared:${kernel.kind}`, { xaug: f32(aAug, [na, d + 2]), p: f32(twice, [2, d]), ...param(kernel) });
+      const h = out.h.data as Float32Array;
+      const col = new Float64Array(na);
+      for (let i = 0; i < na; i++) col[i] = h[2 * i];
+      return col;
+    }
     const out = await this.run(`kernelMatrixPrepared:${kernel.kind}`, { xaug: f32(aAug, [na, d + 2]), p: f32(b, [nb, d]), ...param(kernel) });
-    return Float64Array.from(out.h.data as Float32Array);
+    return new Float64Array(out.h.data as Float32Array);
   }
 
   async kernelColumnSums(x: Float32Array, n: number, c: Float32Array, m: number, d: number, kernel: KernelSpec): Promise<Float64Array> {
