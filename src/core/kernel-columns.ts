@@ -65,8 +65,9 @@ export class KernelColumns {
       const points = new Float32Array(m * this.d);
       part.forEach((u, j) => points.set(this.prepared.subarray(u * e, u * e + this.d), j * this.d));
       const block = await this.backend.kernelMatrixPrepared(this.prepared, this.size, points, m, this.d, this.kernel);
-      const cols = part.map(() => new Float64Array(this.size));
-      for (let v = 0; v < this.size; v++) for (let j = 0; j < m; j++) cols[j][v] = block[v * m + j];
+      // One column is the block itself; several are split out of it (row-major size × m).
+      const cols = m === 1 ? [block] : part.map(() => new Float64Array(this.size));
+      if (m > 1) for (let v = 0; v < this.size; v++) for (let j = 0; j < m; j++) cols[j][v] = block[v * m + j];
       part.forEach((u, j) => this.cache.set(u, cols[j]));
     }
     return Array.from(items, (u) => this.cache.get(u)!);

@@ -217,20 +217,22 @@ export async function refineBySwaps(columns: KernelColumns, kernel: KernelSpec, 
       const s = at[r0];
       const wr = weights[r0];
       const [fetched] = await columns.get([members[i0]]);
-      const next = inGroupOrder(fetched);
+      // The slot's column becomes the incoming item's, in group order, in place (no 8·P-byte
+      // array per swap for the collector).
       const col = cols[r0];
       groupDrop.fill(0);
       for (let g = 0; g < G; g++) {
         let drop = 0;
         for (let i = start[g]; i < start[g + 1]; i++) {
-          const move = wr * (next[i] - col[i]);
+          const value = fetched[members[i]];
+          const move = wr * (value - col[i]);
+          col[i] = value;
           Bu[i] += move;
           if (a[i] !== Infinity) a[i] = cP[i] - Bu[i];
           if (move > drop) drop = move;
         }
         groupDrop[g] = drop;
       }
-      cols[r0] = next;
       inSet[s] = 0;
       inSet[i0] = 1;
       at[r0] = i0;
