@@ -1,7 +1,7 @@
 // Minimal .npy (format version 1.0) writers for a row-major float32 matrix. Written by hand rather
 // than through the project's readers so the bench's input does not depend on code under test.
 import { createWriteStream } from 'node:fs';
-import { writeFile } from 'node:fs/promises';
+import { open, writeFile } from 'node:fs/promises';
 import { Readable } from 'node:stream';
 import { pipeline } from 'node:stream/promises';
 
@@ -39,7 +39,21 @@ export async function writeNpyFloat32(path, data, rows, cols) {
   const head = npyHeader(rows, cols);
   const body = bytesOf(data);
   await writeFile(path, Buffer.concat([head, body]));
+  await flushToDisk(path);
   return head.length + body.length;
+}
+
+/**
+ * Waits until the file is on disk. Otherwise the kernel writes the fresh file back while the first
+ * timed run reads it (at 1M × 128: cairn, the first run, was 1–4 s slower in the bench than alone).
+ */
+async function flushToDisk(path) {
+  const fh = await open(path, 'r+');
+  try {
+    await fh.sync();
+  } finally {
+    await fh.close();
+  }
 }
 
 /**
@@ -57,6 +71,7 @@ export async function writeNpyFloat32Chunks(path, chunks, rows, cols) {
     }
   }
   await pipeline(Readable.from(parts(), { objectMode: false }), createWriteStream(path));
+  await flushToDisk(path);
   if (values !== rows * cols) throw new RangeError(`chunks held ${values} values, expected ${rows}×${cols}`);
   return head.length + values * 4;
 }
