@@ -59,10 +59,10 @@ export async function selectProcessor(ctx: ProcessorContext): Promise<void> {
     opened.push(rows);
     return rows;
   }
-  const rows = await loadRows();
-  // Full passes over more than one shard's rows are shared with other workers when there are any.
   // A pass an earlier attempt left behind is of no use (its points were that attempt's).
   await rm(join(store.dir(ref), 'passes'), { recursive: true, force: true });
+  const rows = await loadRows();
+  // Full passes over more than one shard's rows are shared with other workers when there are any.
   const passRecords: PassRecord[] = [];
   const passSource: PassSource = spec.embedding ? { kind: 'embedding', datasetId: spec.datasetId, cacheKey: spec.embedding.cacheKey } : { kind: 'dataset', datasetId: spec.datasetId };
   const passes =
