@@ -124,7 +124,7 @@ export async function buildApp(deps: AppDeps): Promise<App> {
   app.addHook('onRequest', (req, _reply, done) => {
     try {
       if (lifecycle.closing) throw new CairnError('SERVICE_SHUTTING_DOWN');
-      if (req.url.startsWith('/v1/')) req.tenant = keys.tenant(req.headers.authorization);
+      if (req.url.startsWith('/v1/')) req.tenant = keys.tenantOfRequest(req.method, req.url, req.headers.authorization);
     } catch (err) {
       done(err as Error);
       return;

@@ -17,7 +17,16 @@ import { idParams, resourceId } from './schemas.js';
 export const REPORT_CSP = "default-src 'none'; img-src 'self'; style-src 'unsafe-inline'; base-uri 'none'; form-action 'none'; frame-ancestors 'none'";
 
 const API_KEY_NOTE =
-  'With API keys configured, the images the page embeds (`contact-sheet.png`, `thumbnails/{row}.png`) are requested by the browser without an Authorization header, so they answer 401 unless the browser sends the key some other way (for instance through a proxy that adds it); the page itself reads fine without them.';
+  'With API keys configured, a browser (which sends no Authorization header) opens the report through a link from `POST /v1/jobs/{id}/report-link`: its `access` token then opens the page and everything the page loads or links (icon, contact sheet, thumbnails, result, assignments) for 24 hours.';
+
+export const reportQuery = z.object({
+  access: z.string().max(256).optional().describe('A report token from POST /v1/jobs/{id}/report-link (instead of an Authorization header); the page passes it on to its images and links.'),
+});
+
+export const reportLink = z.object({
+  path: z.string().describe('Path of the report page, with the access token when API keys are configured; relative to the API’s address.'),
+  expiresAt: z.string().nullable().describe('When the token stops opening the report (ISO 8601); null without API keys (no token needed).'),
+});
 
 /** Three stacked stones, in the report's accent colour. */
 export const REPORT_ICON_SVG =
@@ -35,8 +44,8 @@ export const thumbnailParams = z.object({
  * The HTML report of a completed job, and the dataset thumbnails it shows. Needs only the task
  * store from the app's dependencies (so AppDeps and the route modules' RouteDeps both fit).
  */
-export function reportRoutes(app: App, deps: Pick<AppDeps, 'store'>): void {
-  const { store } = deps;
+export function reportRoutes(app: App, deps: Pick<AppDeps, 'store' | 'keys'>): void {
+  const { store, keys } = deps;
   const jobRef = (tenant: string, id: string): TaskRef => ({ kind: 'job', tenant, id });
   const existing = async (tenant: string, id: string): Promise<TaskRef> => {
     const r = jobRef(tenant, id);
@@ -54,6 +63,7 @@ export function reportRoutes(app: App, deps: Pick<AppDeps, 'store'>): void {
           API_KEY_NOTE,
         tags: ['jobs'],
         params: idParams,
+        querystring: reportQuery,
         produces: ['text/html'],
       },
     },
@@ -62,7 +72,7 @@ export function reportRoutes(app: App, deps: Pick<AppDeps, 'store'>): void {
       const state = await store.readState(r);
       if (state.status !== 'completed') throw new CairnError('JOB_NOT_COMPLETED', `The job is ${state.status}.`, { jobId: r.id, status: state.status });
       const spec = await store.readSpec<SelectSpec>(r);
-      const html = renderReportPage(await loadReportInput(store, r, spec));
+      const html = renderReportPage({ ...(await loadReportInput(store, r, spec)), access: req.query.access });
       return reply
         .type('text/html; charset=utf-8')
         .header('content-security-policy', REPORT_CSP)
@@ -70,6 +80,27 @@ export function reportRoutes(app: App, deps: Pick<AppDeps, 'store'>): void {
         .header('referrer-policy', 'no-referrer')
         .header('cache-control', 'private, no-cache')
         .send(html);
+    },
+  );
+
+  app.post(
+    '/v1/jobs/:id/report-link',
+    {
+      schema: {
+        summary: 'A link that opens the job’s report in a browser',
+        description:
+          'With API keys configured, browsers cannot send the Authorization header the report needs. This answers the report’s path with an `access` token bound to this job and tenant, valid for 24 hours; the page passes it on to the images and links it loads. Without API keys, the plain path. The job need not be completed yet (the page answers 409 JOB_NOT_COMPLETED until it is). 404 JOB_NOT_FOUND.',
+        tags: ['jobs'],
+        params: idParams,
+        response: { 200: reportLink },
+      },
+    },
+    async (req) => {
+      const r = await existing(req.tenant, req.params.id);
+      const path = `/v1/jobs/${encodeURIComponent(r.id)}/report`;
+      if (!keys.enabled) return { path, expiresAt: null };
+      const { token, expiresAt } = keys.reportToken(req.tenant, r.id);
+      return { path: `${path}?access=${encodeURIComponent(token)}`, expiresAt: expiresAt.toISOString() };
     },
   );
 

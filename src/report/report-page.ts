@@ -34,6 +34,8 @@ export interface ReportInput {
   result: ResultDocument;
   /** A 2-D projection of a row sample, for vector datasets; null for images or when unavailable. */
   scatter: ScatterInput | null;
+  /** The report token the page was opened with (API keys on): passed on to every image and link of the page. */
+  access?: string;
 }
 
 export interface ScatterInput {
@@ -77,16 +79,21 @@ export function escapeHtml(value: unknown): string {
 
 const ESCAPES: Record<string, string> = { '&': '&amp;', '<': '&lt;', '>': '&gt;', '"': '&quot;', "'": '&#39;' };
 
+/** A link relative to the report, carrying the report token when there is one; escaped for an attribute. */
+function link(path: string, access: string | undefined): string {
+  return escapeHtml(access === undefined ? path : `${path}${path.includes('?') ? '&' : '?'}access=${encodeURIComponent(access)}`);
+}
+
 /** The whole page. */
 export function renderReportPage(input: ReportInput): string {
-  const { job, dataset, result } = input;
+  const { job, dataset, result, access } = input;
   const title = job.name ? job.name : `Job ${job.id}`;
   const datasetTitle = dataset.name ?? dataset.source;
   const sections = [
     headerBlock(input),
     figuresSection(result),
     `<div class="two">${parametersSection(input)}${timingsSection(result)}</div>`,
-    dataset.hasImages ? contactSheetSection(result) : scatterSection(input),
+    dataset.hasImages ? contactSheetSection(result, access) : scatterSection(input),
     prefixSection(result),
     representativesSection(input),
     worstSection(input),
@@ -98,14 +105,14 @@ export function renderReportPage(input: ReportInput): string {
 <meta charset="utf-8">
 <meta name="viewport" content="width=device-width, initial-scale=1">
 <meta name="referrer" content="no-referrer">
-<link rel="icon" href="report-icon.svg" type="image/svg+xml">
+<link rel="icon" href="${link('report-icon.svg', access)}" type="image/svg+xml">
 <title>${escapeHtml(`${title} · ${datasetTitle} · cairn report`)}</title>
 <style>${STYLE}</style>
 </head>
 <body>
 <main>
 ${sections.filter((s) => s !== '').join('\n')}
-<footer>Made by cairn from the job’s result (version ${escapeHtml(result.version)}). The full result: <a href="result">result JSON</a> · every item’s nearest representative: <a href="assignments?format=csv">assignments CSV</a>.</footer>
+<footer>Made by cairn from the job’s result (version ${escapeHtml(result.version)}). The full result: <a href="${link('result', access)}">result JSON</a> · every item’s nearest representative: <a href="${link('assignments?format=csv', access)}">assignments CSV</a>.</footer>
 </main>
 </body>
 </html>
@@ -190,7 +197,7 @@ ${phases.length ? `<table class="timings"><tbody>${rows}</tbody><tfoot><tr><th s
 </section>`;
 }
 
-function contactSheetSection(result: ResultDocument): string {
+function contactSheetSection(result: ResultDocument, access: string | undefined): string {
   const n = Math.min(result.representatives.length, SHEET_CELLS_SHOWN);
   if (n === 0) return '';
   const columns = Math.min(n, SHEET_COLUMNS);
@@ -200,7 +207,7 @@ function contactSheetSection(result: ResultDocument): string {
   const more = result.representatives.length > n ? ` The first ${n} of ${result.k} by rank.` : '';
   return `<section aria-labelledby="h-sheet">
 <h2 id="h-sheet">Contact sheet</h2>
-<figure class="sheet"><img src="contact-sheet.png?limit=${n}&amp;columns=${columns}&amp;cellSize=${SHEET_CELL_SIZE}" width="${width}" height="${height}" alt="Contact sheet of the first ${n} representatives, captioned with rank and weight">
+<figure class="sheet"><img src="${link(`contact-sheet.png?limit=${n}&columns=${columns}&cellSize=${SHEET_CELL_SIZE}`, access)}" width="${width}" height="${height}" alt="Contact sheet of the first ${n} representatives, captioned with rank and weight">
 <figcaption>In rank order, each captioned with its rank and weight.${more}</figcaption></figure>
 </section>`;
 }
@@ -360,14 +367,14 @@ ${weighted ? `<path d="M${lx + 13} ${pad.top + 46} l6 6 l-6 6 l-6 -6 Z" fill="#f
 </svg>`;
 }
 
-function representativesSection({ result, dataset }: ReportInput): string {
+function representativesSection({ result, dataset, access }: ReportInput): string {
   const reps = result.representatives.slice(0, TABLE_ROWS_SHOWN);
   const maxWeight = Math.max(1e-12, ...reps.map((r) => r.weight));
   const images = dataset.hasImages;
   const hasLabels = reps.some((r) => r.labels !== null);
   const body = reps
     .map((r, i) => {
-      const thumb = images ? `<td class="thumb">${thumbnail(r.index, `representative ${r.rank}`, 48, i >= 40)}</td>` : '';
+      const thumb = images ? `<td class="thumb">${thumbnail(r.index, `representative ${r.rank}`, 48, i >= 40, access)}</td>` : '';
       const label = r.label !== null && r.label !== undefined ? `<div class="muted small">${escapeHtml(r.label)}</div>` : '';
       return `<tr><td class="num">${r.rank}</td>${thumb}<td class="id"><code>${escapeHtml(r.id)}</code>${label}</td><td class="num wcell"><span class="wbar" style="width:${((48 * r.weight) / maxWeight).toFixed(1)}px"></span>${formatFixed(r.weight, 3)}</td><td class="num">${formatPercent(r.share)}</td><td class="num">${formatCount(r.count)}</td><td class="num">${formatNumber(r.meanDistance)}</td><td class="num">${formatNumber(r.radius)}</td>${hasLabels ? `<td class="labels">${labelHistogram(r.labels)}</td>` : ''}</tr>`;
     })
@@ -397,14 +404,14 @@ export function labelHistogram(labels: Record<string, number> | null, shown = 4)
   return head.join(' · ') + rest;
 }
 
-function worstSection({ result, dataset }: ReportInput): string {
+function worstSection({ result, dataset, access }: ReportInput): string {
   const worst = (result.coverage.worstCovered ?? []).slice(0, WORST_ROWS_SHOWN);
   if (worst.length === 0) return '';
   const images = dataset.hasImages;
   const repId = new Map(result.representatives.map((r) => [r.rank, r.id]));
   const body = worst
     .map((w, i) => {
-      const thumb = images ? `<td class="thumb">${thumbnail(w.index, `item ${w.id}`, 56, i >= 40)}</td>` : '';
+      const thumb = images ? `<td class="thumb">${thumbnail(w.index, `item ${w.id}`, 56, i >= 40, access)}</td>` : '';
       // nearestRank 0: the nearest is a fixed item (selections that keep given items), at nearestFixed.
       const fixedAt = (w as { nearestFixed?: number }).nearestFixed;
       const rank = w.nearestRank === 0 ? `fixed${fixedAt === undefined ? '' : ` ${fixedAt + 1}`}` : `#${w.nearestRank}`;
@@ -444,8 +451,8 @@ ${body}
 </section>`;
 }
 
-function thumbnail(row: number, alt: string, size: number, lazy: boolean): string {
-  return `<img src="thumbnails/${row}.png" width="${size}" height="${size}" alt="${escapeHtml(alt)}"${lazy ? ' loading="lazy"' : ''}>`;
+function thumbnail(row: number, alt: string, size: number, lazy: boolean, access: string | undefined): string {
+  return `<img src="${link(`thumbnails/${row}.png`, access)}" width="${size}" height="${size}" alt="${escapeHtml(alt)}"${lazy ? ' loading="lazy"' : ''}>`;
 }
 
 // --- formatting ---
