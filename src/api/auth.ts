@@ -77,7 +77,7 @@ export class ApiKeys {
     if (authorization === undefined && this.enabled && (method === 'GET' || method === 'HEAD')) {
       const m = REPORT_PARTS.exec(url);
       const access = m ? new URLSearchParams(m[2]).get('access') : null;
-      if (m && access !== null) return this.reportTenant(access, decodeURIComponent(m[1]));
+      if (m && access !== null) return this.reportTenant(access, decodePath(m[1]));
     }
     return this.tenant(authorization);
   }
@@ -101,5 +101,14 @@ export class ApiKeys {
 
   private mac(tenant: string, jobId: string, expiry: number): string {
     return createHmac('sha256', this.linkKey).update(`${tenant}\n${jobId}\n${expiry}`).digest('base64url');
+  }
+}
+
+/** A path segment decoded; a malformed escape is an invalid link, not a server error. */
+function decodePath(segment: string): string {
+  try {
+    return decodeURIComponent(segment);
+  } catch {
+    throw new CairnError('UNAUTHORIZED', 'The report link is not valid.');
   }
 }

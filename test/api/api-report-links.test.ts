@@ -86,6 +86,8 @@ describe('report links with API keys on', () => {
     await refused('get', `/v1/jobs/${jobId}/report?access=${tenant}.${Number(expiry) + 3600}.${mac}`);
     await refused('get', `/v1/jobs/${jobId}/report?access=south-yard.${expiry}.${mac}`);
     await refused('get', `/v1/jobs/${jobId}/report?access=${tenant}.${expiry}.${mac.slice(1)}A`);
+    // A malformed escape in the path: refused as a client error, not a server error.
+    expect((await request(url).get(`/v1/jobs/%E0%A4%A/report?${access}`)).status).toBe(400);
     // Made 25 hours ago with the server's own key material: expired.
     const old = new ApiKeys(parseApiKeys(KEYS)).reportToken('north-yard', jobId, Date.now() - 25 * 3600 * 1000).token;
     await refused('get', `/v1/jobs/${jobId}/report?access=${encodeURIComponent(old)}`);
