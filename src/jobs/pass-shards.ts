@@ -7,6 +7,7 @@ import { createBackend } from '../compute/create-backend.js';
 import type { KernelSpec } from '../compute/kernel-spec.js';
 import {
   assignInRange,
+  localPasses,
   mergeAssignParts,
   mergeCandidates,
   nearestInRange,
@@ -118,7 +119,8 @@ export function shardedPasses(o: ShardedPassesOptions): RowPasses {
     merge: (parts: Buffer[], shards: Array<[number, number]>) => T,
   ): Promise<T> => {
     const ranges = passRanges(rows.rows, o.shardRows);
-    const dir = join(o.store.dir(o.parent), 'passes', randomBytes(6).toString('hex'));
+    const passId = randomBytes(6).toString('hex');
+    const dir = join(o.store.dir(o.parent), 'passes', passId);
     const pass: PassFile = {
       ...file,
       rows: rows.rows,
@@ -128,14 +130,14 @@ export function shardedPasses(o: ShardedPassesOptions): RowPasses {
       recipe: { shift: Array.from(o.recipe.shift), scale: o.recipe.scale ? Array.from(o.recipe.scale) : null, axes: o.recipe.axes ? Array.from(o.recipe.axes) : null, cols: o.recipe.cols },
       shards: ranges.map(([start, count]) => ({ start, count })),
     };
-    const refs: TaskRef[] = ranges.map((_, i) => ({ kind: 'pass', tenant: o.parent.tenant, id: `${o.parent.id}-${dir.slice(-12)}-${i}` }));
+    const refs: TaskRef[] = ranges.map((_, i) => ({ kind: 'pass', tenant: o.parent.tenant, id: `${o.parent.id}-${passId}-${i}` }));
     await mkdir(dir, { recursive: true });
     try {
       await writeFile(join(dir, 'points.f32'), new Uint8Array(points.buffer, points.byteOffset, points.byteLength));
       await writeFile(join(dir, 'pass.json'), JSON.stringify(pass));
       const createdAt = new Date().toISOString();
       for (const [i, ref] of refs.entries()) {
-        await o.store.create(ref, { kind: 'pass', parentJobId: o.parent.id, pass: dir.slice(-12), shard: i, start: ranges[i][0], count: ranges[i][1], createdAt } satisfies PassSpec);
+        await o.store.create(ref, { kind: 'pass', parentJobId: o.parent.id, pass: passId, shard: i, start: ranges[i][0], count: ranges[i][1], createdAt } satisfies PassSpec);
       }
       // Other workers may take shards from here on; a queue that cannot take them leaves them all to this loop.
       await o.spawn(refs).catch(() => undefined);
@@ -181,8 +183,8 @@ export function shardedPasses(o: ShardedPassesOptions): RowPasses {
 
   return {
     async nearest(rows, backend, points, k, m) {
+      if (passRanges(rows.rows, o.shardRows).length < 2) return localPasses.nearest(rows, backend, points, k, m);
       const M = Math.min(m, rows.rows);
-      if (passRanges(rows.rows, o.shardRows).length < 2) return nearestInRange((s, c) => rows.read(s, c), backend, points, k, rows.cols, M, 0, rows.rows);
       const read = (s: number, c: number) => rows.read(s, c);
       return run(
         rows,
@@ -193,8 +195,8 @@ export function shardedPasses(o: ShardedPassesOptions): RowPasses {
       );
     },
     async assign(rows, backend, kernel, points, k) {
+      if (passRanges(rows.rows, o.shardRows).length < 2) return localPasses.assign(rows, backend, kernel, points, k);
       const read = (s: number, c: number) => rows.read(s, c);
-      if (passRanges(rows.rows, o.shardRows).length < 2) return mergeAssignParts([await assignInRange(read, backend, kernel, points, k, rows.cols, 0, rows.rows)], rows.rows, k);
       return run<AssignPass>(
         rows,
         { op: 'assign', k, m: 0, kernel },

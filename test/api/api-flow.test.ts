@@ -5,7 +5,7 @@ import { OnnxBackend } from '../../src/compute/onnx-backend.js';
 import { DenseRows } from '../../src/core/rows.js';
 import { select } from '../../src/core/select.js';
 import type { ResultDocument } from '../../src/jobs/result-document.js';
-import { buildTar, png, type Rgb } from '../data/archive-fixtures.js';
+import { swatchTar } from '../data/archive-fixtures.js';
 import { clusterMatrix, npyOf } from '../jobs/task-fixtures.js';
 import { startBullWorker } from '../../src/jobs/bullmq-worker.js';
 import { deleteKeys, testLog, testRedisUrl, uniquePrefix } from '../helpers/queues.js';
@@ -168,14 +168,7 @@ describe.each(modes)('API end to end ($name)', (mode) => {
   });
 
   it('draws a contact sheet of an image dataset’s representatives', async () => {
-    const colours: Rgb[] = [
-      [220, 40, 40],
-      [40, 200, 60],
-      [40, 60, 220],
-    ];
-    const entries = [];
-    for (let i = 0; i < 30; i++) entries.push({ name: `img-${i}.png`, data: await png(24, 24, colours[i % 3]) });
-    const upload = await request(url).post('/v1/datasets').attach('file', await buildTar(entries), 'parts.tar');
+    const upload = await request(url).post('/v1/datasets').attach('file', await swatchTar(30), 'parts.tar');
     expect(upload.status).toBe(202);
     const ds = await settle(url, `/v1/datasets/${upload.body.id}`);
     expect(ds).toMatchObject({ status: 'completed', rows: 30, hasImages: true });

@@ -2,7 +2,7 @@ import request from 'supertest';
 import { afterAll, beforeAll, describe, expect, it } from 'vitest';
 import { ApiKeys, hashApiKey, REPORT_LINK_SECONDS } from '../../src/api/auth.js';
 import { parseApiKeys } from '../../src/config.js';
-import { buildTar, png, type Rgb } from '../data/archive-fixtures.js';
+import { swatchTar } from '../data/archive-fixtures.js';
 import { clusterMatrix, npyOf } from '../jobs/task-fixtures.js';
 import { settle, testServer, type TestServer } from './api-helpers.js';
 
@@ -26,14 +26,7 @@ describe('report links with API keys on', () => {
   beforeAll(async () => {
     t = await testServer({ CAIRN_API_KEYS: KEYS, CAIRN_HOST: '127.0.0.1' });
     url = t.server.url;
-    const colours: Rgb[] = [
-      [220, 40, 40],
-      [40, 200, 60],
-      [40, 60, 220],
-    ];
-    const entries = [];
-    for (let i = 0; i < 24; i++) entries.push({ name: `img-${i}.png`, data: await png(24, 24, colours[i % 3]) });
-    const images = (await request(url).post('/v1/datasets').set(A).attach('file', await buildTar(entries), 'parts.tar')).body.id;
+    const images = (await request(url).post('/v1/datasets').set(A).attach('file', await swatchTar(24), 'parts.tar')).body.id;
     await settle(url, `/v1/datasets/${images}`, A);
     jobId = (await request(url).post('/v1/jobs').set(A).send({ datasetId: images, k: 3, maxIterations: 60 })).body.id;
     await settle(url, `/v1/jobs/${jobId}`, A);

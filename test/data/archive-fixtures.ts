@@ -62,6 +62,21 @@ export function png(width: number, height: number, [r, g, b]: Rgb): Promise<Buff
   return sharp({ create: { width, height, channels: 3, background: { r, g, b } } }).png().toBuffer();
 }
 
+/**
+ * A tar of `count` size×size PNG swatches named img-<i>.png, coloured red, green, blue in turn:
+ * three clusters, one per colour (row i is colour i mod 3).
+ */
+export async function swatchTar(count: number, size = 24): Promise<Buffer> {
+  const colours: Rgb[] = [
+    [220, 40, 40],
+    [40, 200, 60],
+    [40, 60, 220],
+  ];
+  const entries = [];
+  for (let i = 0; i < count; i++) entries.push({ name: `img-${i}.png`, data: await png(size, size, colours[i % 3]) });
+  return buildTar(entries);
+}
+
 export function jpeg(width: number, height: number, [r, g, b]: Rgb): Promise<Buffer> {
   return sharp({ create: { width, height, channels: 3, background: { r, g, b } } }).jpeg({ quality: 95 }).toBuffer();
 }
